@@ -1,0 +1,131 @@
+"""Micro benchmark: full scan vs pruned search of the data-driven choice.
+
+Invented synthetic data (not measured): 80k records, 10k agents walking at about 1.3 m/s.
+Prints one JSON object. Compilation is excluded (warm-up call first); times are medians.
+
+    NUMBA_CACHE_DIR=/tmp/nb python bench/choose_micro.py [--records 80000] [--agents 10000] [--repeat 5]
+"""
+import argparse
+import json
+import os
+import platform
+import sys
+import time
+
+import numpy as np
+
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+
+from crowdcore import choose as ch  # noqa: E402
+
+
+def make_records(rng, n, buckets):
+    """Invented records: entry speed ~ N(1.3, 0.3), exit = entry + noise, turn ~ N(0, 0.08)
+    with heavy tails, some near-standstill records and exact duplicates (for exact ties)."""
+    a = np.clip(rng.normal(1.3, 0.3, n), 0.0, None)
+    slow = rng.random(n) < 0.03
+    a[slow] = np.abs(rng.normal(0.0, 0.05, slow.sum()))
+    b = np.clip(a + rng.normal(0.0, 0.04, n), 0.0, None)
+    b[slow & (rng.random(n) < 0.3)] = 0.0
+    phi = rng.normal(0.0, 0.08, n)
+    tail = rng.random(n) < 0.05
+    phi[tail] = rng.standard_t(2, tail.sum()) * 0.3
+    phi = np.pi - np.mod(np.pi - phi, 2 * np.pi)  # wrap into (-pi, pi]
+    dup = rng.choice(n, n // 50, replace=False)
+    src = rng.choice(n, n // 50)
+    a[dup], b[dup], phi[dup] = a[src], b[src], phi[src]
+    order = np.argsort(a, kind="stable")
+    a, b, phi = a[order], b[order], phi[order]
+    start = (np.arange(buckets + 1, dtype=np.int64) * n // buckets).astype(np.int32)
+    return a, b, phi, start, a[np.minimum(start[:-1], n - 1)].copy()
+
+
+def _unit(ang):
+    return np.stack([np.cos(ang), np.sin(ang)], axis=1)
+
+
+def make_agents(rng, n):
+    """Invented agent states: speed ~ 1.3 m/s, random heading, preferred/safe/group velocities nearby."""
+    heading = rng.uniform(-np.pi, np.pi, n)
+    speed = np.clip(rng.normal(1.3, 0.2, n), 0.0, None)
+    v_now = speed[:, None] * _unit(heading)
+    pref_ang = heading + rng.normal(0.0, 0.15, n)
+    v_pref = 1.34 * _unit(pref_ang)
+    nav_dir = _unit(pref_ang)
+    v_safe = v_now + rng.normal(0.0, 0.05, (n, 2))
+    v_group = v_now + rng.normal(0.0, 0.1, (n, 2))
+    max_speed = np.full(n, 2.5)
+    # Half-planes in the shape avoidance produces: v_safe on the allowed (left) side, 0.05-0.4 m/s
+    # inside each line, lines facing random directions.
+    L = 4
+    normal = _unit(rng.uniform(-np.pi, np.pi, n * L)).reshape(n, L, 2)  # points into the allowed side
+    depth = rng.uniform(0.05, 0.4, (n, L))
+    lines = np.empty((n, L, 4))
+    lines[:, :, :2] = v_safe[:, None, :] - depth[:, :, None] * normal
+    lines[:, :, 2] = normal[:, :, 1]  # direction = normal rotated by -90 degrees: allowed side is left
+    lines[:, :, 3] = -normal[:, :, 0]
+    line_count = rng.integers(0, L + 1, n).astype(np.int32)
+    return v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count
+
+
+def _median_ms(fn, repeat):
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        times.append((time.perf_counter() - t0) * 1e3)
+    return float(np.median(times))
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--records", type=int, default=80_000)
+    ap.add_argument("--agents", type=int, default=10_000)
+    ap.add_argument("--buckets", type=int, default=100)
+    ap.add_argument("--width", type=int, default=3)
+    ap.add_argument("--leaf", type=int, default=32)
+    ap.add_argument("--repeat", type=int, default=5)
+    ap.add_argument("--seed", type=int, default=7)
+    args = ap.parse_args(argv)
+
+    rng = np.random.default_rng(args.seed)
+    recs = make_records(rng, args.records, args.buckets)
+    agents = make_agents(rng, args.agents)
+    weights = np.ones(6)
+    ch.RecordIndex.build(*make_records(rng, 500, 5), leaf_size=args.leaf)  # compile / load the builder
+    t0 = time.perf_counter()
+    index = ch.RecordIndex.build(*recs, leaf_size=args.leaf)
+    build_ms = (time.perf_counter() - t0) * 1e3
+    n = args.agents
+    result = {"records": args.records, "agents": n, "buckets": args.buckets, "width": args.width,
+              "leaf_size": args.leaf, "threads": ch.numba.get_num_threads(), "repeat": args.repeat,
+              "build_ms": round(build_ms, 2)}
+    k = np.clip(np.searchsorted(recs[4], np.hypot(*agents[0].T), "right") - 1, 0, args.buckets - 1)
+    lo, hi = np.maximum(0, k - args.width), np.minimum(args.buckets - 1, k + args.width)
+    result["mean_records_in_range"] = float(np.mean(recs[3][hi + 1] - recs[3][lo]))
+    for strict in (False, True):
+        vel_f, rec_f = np.empty((n, 2)), np.empty(n, np.int32)
+        vel_p, rec_p = np.empty((n, 2)), np.empty(n, np.int32)
+        full = lambda: index.run(ch.choose_full, weights, args.width, strict, *agents, vel_f, rec_f)  # noqa
+        pruned = lambda: index.run(ch.choose_pruned, weights, args.width, strict, *agents, vel_p, rec_p)  # noqa
+        full()
+        pruned()  # warm-up: compile (or load from cache) before timing
+        full_ms = _median_ms(full, args.repeat)
+        pruned_ms = _median_ms(pruned, args.repeat)
+        evals, visits = np.empty(n, np.int64), np.empty(n, np.int64)
+        ch.pruned_work(*index.pruned_args(), weights, args.width, strict, *agents, evals, visits)
+        result["strict" if strict else "non_strict"] = {
+            "full_ms": round(full_ms, 2), "pruned_ms": round(pruned_ms, 2),
+            "speedup": round(full_ms / pruned_ms, 2),
+            "identical_records": bool(np.array_equal(rec_f, rec_p)),
+            "identical_velocities": bool(np.array_equal(vel_f, vel_p)),
+            "agents_without_record": int((rec_f < 0).sum()),
+            "mean_energies_pruned": float(evals.mean()), "mean_nodes_pruned": float(visits.mean())}
+    result["machine"] = {"cpu_count": os.cpu_count(), "python": platform.python_version(),
+                         "processor": platform.processor() or platform.machine(),
+                         "note": "shared machine: other jobs may inflate both timings"}
+    print(json.dumps(result, indent=1))
+
+
+if __name__ == "__main__":
+    main()

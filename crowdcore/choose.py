@@ -1,0 +1,729 @@
+"""Data-driven velocity choice: each agent takes the motion record of least energy.
+
+Two searches give the same record for every agent:
+- `choose_full` scans every record of the buckets within the search width, in index order;
+- `choose_pruned` runs a branch-and-bound over per-bucket k-d trees (`RecordIndex`).
+Both call the one `energy` kernel on the same inputs, so the energies they compare are bitwise
+identical; pruning only ever skips records whose energy is provably (with a wide rounding
+margin) above the best found, so ties still resolve to the lowest record index.
+
+Why pruning works: the four quadratic terms add up to W*|u - c|^2 + C0 with W = w0+w2+w4+w5,
+c = (w0*v_now + w2*v_pref + w4*v_safe + w5*v_group)/W. In the agent's heading frame u becomes
+q_r = b_r*(cos phi_r, sin phi_r), which does not depend on the agent, so the quadratic part is a
+nearest-point query among fixed points q_r around c' = rotate(c, -theta). Tree nodes also bound the
+entry speed a (consistency term) and the turn angle phi (direction term).
+"""
+import math
+
+import numpy as np
+import numba
+
+from ._jit import kernel, parallel_kernel
+from .errors import RecordSetError, StepError
+
+__all__ = ["energy", "choose_full", "choose_pruned",
+           "RecordIndex", "choose"]
+
+HEADING_EPS = 1e-9      # |v_now| above this defines the heading (contract)
+LINE_EPS = 1e-9         # half-plane violation tolerance in strict mode (contract)
+_MARGIN_REL = 1e-9      # prune only when a bound beats the best by this fraction of the energy scale
+_STACK = 64             # DFS stack entries; tree depth is at most 31
+_NODE_COLS = 13         # qx_lo qx_hi qy_lo qy_hi a_lo a_hi phi_lo phi_hi cos/sin(phi_lo) cos/sin(phi_hi) b_lo
+
+
+# ---------------------------------------------------------------------------------------------
+# Per-agent, per-record pieces (shared by both searches)
+
+@kernel
+def agent_frame(vnx, vny, vpx, vpy, dx, dy):
+    """(theta, s, dn): heading, speed |v_now| and |nav_dir|, as the contract defines them."""
+    s = math.sqrt(vnx * vnx + vny * vny)
+    dn = math.sqrt(dx * dx + dy * dy)
+    if s > HEADING_EPS:
+        theta = math.atan2(vny, vnx)
+    elif dn > 0.0:
+        theta = math.atan2(dy, dx)
+    elif vpx != 0.0 or vpy != 0.0:
+        theta = math.atan2(vpy, vpx)
+    else:
+        theta = 0.0
+    return theta, s, dn
+
+
+@kernel
+def record_velocity(b_r, phi_r, theta):
+    """u_r = b_r * (cos(theta + phi_r), sin(theta + phi_r))."""
+    ang = theta + phi_r
+    return b_r * math.cos(ang), b_r * math.sin(ang)
+
+
+@kernel
+def energy(a_r, b_r, phi_r, theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
+    """Energy of record (a_r, b_r, phi_r) for one agent; terms added in the contract's order.
+
+    The direction cosine uses the heading angle theta+phi_r, which is the angle of u_r when
+    b_r > 0 and the contract's rule when b_r == 0. dn == 0 drops the direction term.
+    """
+    ang = theta + phi_r
+    ca = math.cos(ang)
+    sa = math.sin(ang)
+    ux = b_r * ca
+    uy = b_r * sa
+    ex = ux - vnx
+    ey = uy - vny
+    e = w[0] * (ex * ex + ey * ey)
+    da = a_r - s
+    e += w[1] * (da * da)
+    ex = ux - vpx
+    ey = uy - vpy
+    e += w[2] * (ex * ex + ey * ey)
+    if dn > 0.0:
+        e += w[3] * (1.0 - (ca * dx + sa * dy) / dn)
+    ex = ux - vsx
+    ey = uy - vsy
+    e += w[4] * (ex * ex + ey * ey)
+    ex = ux - vgx
+    ey = uy - vgy
+    e += w[5] * (ex * ex + ey * ey)
+    return e
+
+
+@kernel
+def _allowed(ux, uy, strict, lines, i, nl):
+    # Strict: u must lie left of (or within LINE_EPS of) every half-plane line of agent i.
+    if strict:
+        for j in range(nl):
+            px = lines[i, j, 0]
+            py = lines[i, j, 1]
+            ldx = lines[i, j, 2]
+            ldy = lines[i, j, 3]
+            if ldx * (py - uy) - ldy * (px - ux) > LINE_EPS:
+                return False
+    return True
+
+
+@kernel
+def _bucket_of(bucket_min_a, s):
+    nb = bucket_min_a.shape[0]
+    k = np.searchsorted(bucket_min_a, s, side="right") - 1
+    if k < 0:
+        k = 0
+    if k > nb - 1:
+        k = nb - 1
+    return k
+
+
+@kernel
+def _scan_agent(a, b, phi, r0, r1, theta, s, dn, w, vmax, strict, lines, i, nl,
+                vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
+    # Full scan of records r0..r1-1 in index order: first strictly smaller energy wins, so ties
+    # keep the lowest index. NaN energies (only from overflow) never win.
+    best = np.inf
+    best_r = -1
+    for r in range(r0, r1):
+        if b[r] > vmax:
+            continue
+        e = energy(a[r], b[r], phi[r], theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
+        if e != e:
+            continue
+        if best_r >= 0 and not e < best:
+            continue
+        if strict:
+            ux, uy = record_velocity(b[r], phi[r], theta)
+            if not _allowed(ux, uy, strict, lines, i, nl):
+                continue
+        best = e
+        best_r = r
+    return best_r
+
+
+@kernel
+def _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec):
+    if best_r < 0:
+        out_vel[i, 0] = v_safe[i, 0]
+        out_vel[i, 1] = v_safe[i, 1]
+        out_rec[i] = -1
+    else:
+        ux, uy = record_velocity(b[best_r], phi[best_r], theta)
+        out_vel[i, 0] = ux
+        out_vel[i, 1] = uy
+        out_rec[i] = best_r
+
+
+@kernel
+def _search_range(bucket_start, bucket_min_a, z, s):
+    nb = bucket_start.shape[0] - 1
+    k = _bucket_of(bucket_min_a, s)
+    k0 = max(0, k - z)
+    k1 = min(nb - 1, k + z)
+    return k0, k1
+
+
+# ---------------------------------------------------------------------------------------------
+# Full scan
+
+@kernel
+def _solo_weights(weights):
+    w = weights.copy()
+    w[5] = 0.0
+    return w
+
+
+@kernel
+def _pick_weights(weights, w_solo, vgx, vgy):
+    """An agent outside any group has v_group = NaN: its group term is dropped (weight 0)."""
+    if vgx != vgx or vgy != vgy:
+        return w_solo, 0.0, 0.0
+    return weights, vgx, vgy
+
+
+@parallel_kernel
+def choose_full(a, b, phi, bucket_start, bucket_min_a, weights, z, strict, v_now, v_pref, nav_dir,
+                v_safe, v_group, max_speed, lines, line_count, out_vel, out_rec):
+    """Reference search: every record of buckets k-z..k+z, in index order. Writes row i only."""
+    n = v_now.shape[0]
+    nb = bucket_start.shape[0] - 1
+    w_solo = _solo_weights(weights)
+    for i in numba.prange(n):
+        w, vgx, vgy = _pick_weights(weights, w_solo, v_group[i, 0], v_group[i, 1])
+        vnx = v_now[i, 0]
+        vny = v_now[i, 1]
+        vpx = v_pref[i, 0]
+        vpy = v_pref[i, 1]
+        dx = nav_dir[i, 0]
+        dy = nav_dir[i, 1]
+        theta, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
+        best_r = -1
+        if nb > 0 and a.shape[0] > 0:
+            k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
+            best_r = _scan_agent(a, b, phi, bucket_start[k0], bucket_start[k1 + 1], theta, s, dn, w,
+                                 max_speed[i], strict, lines, i, line_count[i], vnx, vny, vpx, vpy, dx, dy,
+                                 v_safe[i, 0], v_safe[i, 1], vgx, vgy)
+        _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec)
+
+
+# ---------------------------------------------------------------------------------------------
+# Index: one implicit, balanced k-d tree over q_r per bucket
+
+@kernel
+def _build_trees(a, b, phi, bucket_start, leaf_size):
+    """Returns (perm, bucket_node_start, node_range, node_box).
+
+    perm: tree order -> record index. Bucket k owns nodes bucket_node_start[k]..[k+1]; local node j
+    has children 2j+1, 2j+2 and is a leaf when 2j+1 is past the end. Nodes split their range at the
+    middle along the wider q axis, so all leaves of a bucket sit at one depth with <= leaf_size records.
+    """
+    n = a.shape[0]
+    nb = bucket_start.shape[0] - 1
+    qx = np.empty(n)
+    qy = np.empty(n)
+    for r in range(n):
+        qx[r] = b[r] * math.cos(phi[r])
+        qy[r] = b[r] * math.sin(phi[r])
+    bucket_node_start = np.zeros(nb + 1, np.int32)
+    for k in range(nb):
+        m = bucket_start[k + 1] - bucket_start[k]
+        nodes = 0
+        if m > 0:
+            depth = 0
+            while (m + (1 << depth) - 1) >> depth > leaf_size:
+                depth += 1
+            nodes = (1 << (depth + 1)) - 1
+        bucket_node_start[k + 1] = bucket_node_start[k] + nodes
+    total = bucket_node_start[nb]
+    node_range = np.zeros((total, 2), np.int32)
+    node_box = np.zeros((total, _NODE_COLS))
+    perm = np.arange(n).astype(np.int32)
+    for k in range(nb):
+        base = bucket_node_start[k]
+        nodes = bucket_node_start[k + 1] - base
+        if nodes == 0:
+            continue
+        node_range[base, 0] = bucket_start[k]
+        node_range[base, 1] = bucket_start[k + 1]
+        for j in range(nodes):  # index order is breadth-first: parents before children
+            lo = node_range[base + j, 0]
+            hi = node_range[base + j, 1]
+            box = node_box[base + j]
+            box[0] = np.inf
+            box[1] = -np.inf
+            box[2] = np.inf
+            box[3] = -np.inf
+            box[4] = np.inf
+            box[5] = -np.inf
+            box[6] = np.inf
+            box[7] = -np.inf
+            box[12] = np.inf
+            for t in range(lo, hi):
+                r = perm[t]
+                box[0] = min(box[0], qx[r])
+                box[1] = max(box[1], qx[r])
+                box[2] = min(box[2], qy[r])
+                box[3] = max(box[3], qy[r])
+                box[4] = min(box[4], a[r])
+                box[5] = max(box[5], a[r])
+                box[6] = min(box[6], phi[r])
+                box[7] = max(box[7], phi[r])
+                box[12] = min(box[12], b[r])
+            box[8] = math.cos(box[6])
+            box[9] = math.sin(box[6])
+            box[10] = math.cos(box[7])
+            box[11] = math.sin(box[7])
+            if 2 * j + 1 < nodes:
+                seg = perm[lo:hi].copy()
+                key = np.empty(hi - lo)
+                if box[1] - box[0] >= box[3] - box[2]:
+                    for t in range(hi - lo):
+                        key[t] = qx[seg[t]]
+                else:
+                    for t in range(hi - lo):
+                        key[t] = qy[seg[t]]
+                order = np.argsort(key, kind="mergesort")
+                for t in range(hi - lo):
+                    perm[lo + t] = seg[order[t]]
+                mid = lo + (hi - lo) // 2
+                node_range[base + 2 * j + 1, 0] = lo
+                node_range[base + 2 * j + 1, 1] = mid
+                node_range[base + 2 * j + 2, 0] = mid
+                node_range[base + 2 * j + 2, 1] = hi
+    return perm, bucket_node_start, node_range, node_box
+
+
+@kernel
+def _node_bound(box, m, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb, vmax):
+    # Lower bound of the energy of every record in node m (inf if none can be eligible).
+    # Takes the whole table and a row: a row view would cost an atomic refcount per call.
+    if box[m, 12] > vmax:
+        return np.inf
+    ddx = max(box[m, 0] - cx, 0.0, cx - box[m, 1])
+    ddy = max(box[m, 2] - cy, 0.0, cy - box[m, 3])
+    lb = W * (ddx * ddx + ddy * ddy) + C0
+    da = max(box[m, 4] - s, 0.0, s - box[m, 5])
+    lb += w1 * (da * da)
+    if use_dir and not (box[m, 6] <= beta <= box[m, 7]):
+        c_lo = box[m, 8] * cb + box[m, 9] * sb
+        c_hi = box[m, 10] * cb + box[m, 11] * sb
+        lb += w3 * (1.0 - max(c_lo, c_hi))
+    return lb
+
+
+@kernel
+def _search_agent(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
+                  node_box, b_max, a_max, w, z, strict, vmax, lines, i, nl,
+                  vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
+    """Pruned search for one agent: (best record or -1, theta, energies evaluated, nodes visited)."""
+    theta, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
+    nb = bucket_start.shape[0] - 1
+    if nb <= 0 or a.shape[0] == 0:
+        return -1, theta, 0, 0
+    k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
+
+    # Quadratic terms as W*|q - c'|^2 + C0 in the heading frame.
+    ct = math.cos(theta)
+    st = math.sin(theta)
+    W = w[0] + w[2] + w[4] + w[5]
+    tx = w[0] * vnx + w[2] * vpx + w[4] * vsx + w[5] * vgx
+    ty = w[0] * vny + w[2] * vpy + w[4] * vsy + w[5] * vgy
+    pp = (w[0] * (vnx * vnx + vny * vny) + w[2] * (vpx * vpx + vpy * vpy)
+          + w[4] * (vsx * vsx + vsy * vsy) + w[5] * (vgx * vgx + vgy * vgy))
+    cx = 0.0
+    cy = 0.0
+    C0 = 0.0
+    if W > 0.0:
+        gx = tx / W
+        gy = ty / W
+        C0 = pp - W * (gx * gx + gy * gy)
+        cx = ct * gx + st * gy
+        cy = -st * gx + ct * gy
+    use_dir = dn > 0.0 and w[3] > 0.0
+    beta = 0.0
+    cb = 1.0
+    sb = 0.0
+    if use_dir:
+        ddx = ct * dx + st * dy
+        ddy = -st * dx + ct * dy
+        beta = math.atan2(ddy, ddx)
+        cb = ddx / dn
+        sb = ddy / dn
+    # Rounding in energies and bounds is a few ulps of this scale; the margin is ~1e7 times wider.
+    nv = math.sqrt(vnx * vnx + vny * vny)
+    npf = math.sqrt(vpx * vpx + vpy * vpy)
+    nsf = math.sqrt(vsx * vsx + vsy * vsy)
+    ngr = math.sqrt(vgx * vgx + vgy * vgy)
+    scale = (w[0] * (nv + b_max) ** 2 + w[2] * (npf + b_max) ** 2 + w[4] * (nsf + b_max) ** 2
+             + w[5] * (ngr + b_max) ** 2 + w[1] * (a_max + s) ** 2 + 2.0 * w[3])
+    margin = _MARGIN_REL * scale
+    r0 = bucket_start[k0]
+    r1 = bucket_start[k1 + 1]
+    if not (math.isfinite(margin) and math.isfinite(C0) and math.isfinite(cx) and math.isfinite(cy)):
+        best_r = _scan_agent(a, b, phi, r0, r1, theta, s, dn, w, vmax, strict, lines, i, nl,
+                             vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
+        return best_r, theta, r1 - r0, 0
+
+    # Buckets best-first by the bound of their root node.
+    nk = k1 - k0 + 1
+    order = np.empty(nk, np.int64)
+    order_lb = np.empty(nk)
+    for t in range(nk):
+        k = k0 + t
+        lb = np.inf
+        if bucket_node_start[k + 1] > bucket_node_start[k]:
+            lb = _node_bound(node_box, bucket_node_start[k], cx, cy, W, C0, w[1], s, w[3], use_dir,
+                             beta, cb, sb, vmax)
+        u = t
+        while u > 0 and order_lb[u - 1] > lb:
+            order[u] = order[u - 1]
+            order_lb[u] = order_lb[u - 1]
+            u -= 1
+        order[u] = k
+        order_lb[u] = lb
+
+    best = np.inf
+    best_r = -1
+    evals = 0
+    visits = 0
+    stack = np.empty(_STACK, np.int64)
+    stack_lb = np.empty(_STACK)
+    w1 = w[1]
+    w3 = w[3]
+    for t in range(nk):
+        if order_lb[t] > best + margin:  # also stops at empty buckets (inf)
+            break
+        k = order[t]
+        base = bucket_node_start[k]
+        nodes = bucket_node_start[k + 1] - base
+        if nodes == 0:
+            continue
+        stack[0] = 0
+        stack_lb[0] = order_lb[t]
+        sp = 1
+        while sp > 0:
+            sp -= 1
+            j = stack[sp]
+            if stack_lb[sp] > best + margin:
+                continue
+            visits += 1
+            c1 = 2 * j + 1
+            if c1 < nodes:
+                lb1 = _node_bound(node_box, base + c1, cx, cy, W, C0, w1, s, w[3], use_dir, beta, cb, sb, vmax)
+                lb2 = _node_bound(node_box, base + c1 + 1, cx, cy, W, C0, w1, s, w[3], use_dir, beta, cb, sb,
+                                  vmax)
+                # Push the farther child first so the nearer one is explored first.
+                if lb1 <= lb2:
+                    stack[sp] = c1 + 1
+                    stack_lb[sp] = lb2
+                    stack[sp + 1] = c1
+                    stack_lb[sp + 1] = lb1
+                else:
+                    stack[sp] = c1
+                    stack_lb[sp] = lb1
+                    stack[sp + 1] = c1 + 1
+                    stack_lb[sp + 1] = lb2
+                sp += 2
+                continue
+            for p in range(node_range[base + j, 0], node_range[base + j, 1]):
+                if rec_t[p, 5] > vmax:
+                    continue
+                # The energy rewritten in the heading frame, without trigonometry: equal to `energy`
+                # up to rounding (far below margin), so it only lets through near-best records.
+                ex = rec_t[p, 0] - cx
+                ey = rec_t[p, 1] - cy
+                da = rec_t[p, 2] - s
+                approx = W * (ex * ex + ey * ey) + C0 + w1 * (da * da)
+                if use_dir:
+                    approx += w3 * (1.0 - (rec_t[p, 3] * cb + rec_t[p, 4] * sb))
+                if approx > best + margin:
+                    continue
+                r = perm[p]
+                evals += 1
+                e = energy(a[r], b[r], phi[r], theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
+                if e != e:
+                    continue
+                if best_r >= 0 and not (e < best or (e == best and r < best_r)):
+                    continue
+                if strict:
+                    ux, uy = record_velocity(b[r], phi[r], theta)
+                    if not _allowed(ux, uy, strict, lines, i, nl):
+                        continue
+                best = e
+                best_r = r
+    return best_r, theta, evals, visits
+
+
+@parallel_kernel
+def choose_pruned(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
+                  node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+                  max_speed, lines, line_count, out_vel, out_rec):
+    """Indexed search; returns exactly the record `choose_full` returns. Writes row i only."""
+    n = v_now.shape[0]
+    w_solo = _solo_weights(weights)
+    for i in numba.prange(n):
+        w, vgx, vgy = _pick_weights(weights, w_solo, v_group[i, 0], v_group[i, 1])
+        best_r, theta, _ev, _vis = _search_agent(
+            a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range, node_box,
+            b_max, a_max, w, z, strict, max_speed[i], lines, i, line_count[i],
+            v_now[i, 0], v_now[i, 1], v_pref[i, 0], v_pref[i, 1], nav_dir[i, 0], nav_dir[i, 1],
+            v_safe[i, 0], v_safe[i, 1], vgx, vgy)
+        _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec)
+
+
+@parallel_kernel
+def pruned_work(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
+                node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+                max_speed, lines, line_count, out_evals, out_visits):
+    """Diagnostics for benchmarks: energies evaluated and tree nodes visited per agent."""
+    n = v_now.shape[0]
+    w_solo = _solo_weights(weights)
+    for i in numba.prange(n):
+        w, vgx, vgy = _pick_weights(weights, w_solo, v_group[i, 0], v_group[i, 1])
+        _r, _th, ev, vis = _search_agent(
+            a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range, node_box,
+            b_max, a_max, w, z, strict, max_speed[i], lines, i, line_count[i],
+            v_now[i, 0], v_now[i, 1], v_pref[i, 0], v_pref[i, 1], nav_dir[i, 0], nav_dir[i, 1],
+            v_safe[i, 0], v_safe[i, 1], vgx, vgy)
+        out_evals[i] = ev
+        out_visits[i] = vis
+
+
+# ---------------------------------------------------------------------------------------------
+# Python surface
+
+def _as_f64(name, x, err, ndim=1):
+    try:
+        arr = np.ascontiguousarray(x, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise err(f"{name} must be an array of numbers") from None
+    if arr.ndim != ndim:
+        raise err(f"{name} must be {ndim}-dimensional, got shape {arr.shape}")
+    return arr
+
+
+def _check_records(a, b, phi, bucket_start, bucket_min_a):
+    a = _as_f64("a", a, RecordSetError)
+    b = _as_f64("b", b, RecordSetError)
+    phi = _as_f64("phi", phi, RecordSetError)
+    n = a.shape[0]
+    if b.shape[0] != n or phi.shape[0] != n:
+        raise RecordSetError(f"a, b and phi must have equal lengths, got {n}, {b.shape[0]}, {phi.shape[0]}")
+    for name, arr in (("a", a), ("b", b), ("phi", phi)):
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            raise RecordSetError(f"{name}[{int(np.argmax(bad))}] is not finite")
+    if (b < 0).any():
+        raise RecordSetError(f"b[{int(np.argmax(b < 0))}] is negative (exit speeds are lengths)")
+    bad = (phi < -np.pi) | (phi > np.pi)
+    if bad.any():
+        raise RecordSetError(f"phi[{int(np.argmax(bad))}] is outside [-pi, pi]")
+    if n > 1 and (np.diff(a) < 0).any():
+        raise RecordSetError(f"a is not sorted ascending (at index {int(np.argmax(np.diff(a) < 0)) + 1})")
+    bs = np.asarray(bucket_start)
+    if bs.ndim != 1 or bs.shape[0] < 2 or not np.issubdtype(bs.dtype, np.integer):
+        raise RecordSetError(f"bucket_start must be a 1-D integer array of B+1 >= 2 entries, got {bs.dtype} "
+                             f"{bs.shape}")
+    if bs[0] != 0 or bs[-1] != n or (np.diff(bs) < 0).any():
+        raise RecordSetError(f"bucket_start must rise from 0 to the record count {n}")
+    bs = np.ascontiguousarray(bs, dtype=np.int32)
+    nb = bs.shape[0] - 1
+    if bucket_min_a is None:
+        bma = a[np.minimum(bs[:-1], n - 1)] if n > 0 else np.zeros(nb)
+    else:
+        bma = _as_f64("bucket_min_a", bucket_min_a, RecordSetError)
+    if bma.shape[0] != nb:
+        raise RecordSetError(f"bucket_min_a must have B = {nb} entries, got {bma.shape[0]}")
+    if np.isnan(bma).any() or (nb > 1 and (np.diff(bma) < 0).any()):
+        raise RecordSetError("bucket_min_a must be ascending and not NaN")
+    return a, b, phi, bs, np.ascontiguousarray(bma)
+
+
+def _record_arrays(records):
+    """(a, b, phi, bucket_start, bucket_min_a) from a RecordIndex, a record-set object or a tuple."""
+    if isinstance(records, RecordIndex):
+        return records.a, records.b, records.phi, records.bucket_start, records.bucket_min_a
+    if isinstance(records, (tuple, list)):
+        if len(records) == 4:
+            return tuple(records) + (None,)
+        if len(records) == 5:
+            return tuple(records)
+        raise RecordSetError("records tuple must be (a, b, phi, bucket_start[, bucket_min_a])")
+    try:
+        return records.a, records.b, records.phi, records.bucket_start, records.bucket_min_a
+    except AttributeError:
+        raise RecordSetError("records must be a RecordIndex, a record set or (a, b, phi, bucket_start"
+                             "[, bucket_min_a])") from None
+
+
+class RecordIndex:
+    """Search index over one record set: per-bucket k-d trees of q_r = b_r*(cos phi_r, sin phi_r).
+
+    Build once per record set (O(N log N)); read-only afterwards. Attributes are plain numpy arrays.
+    """
+
+    __slots__ = ("a", "b", "phi", "bucket_start", "bucket_min_a", "perm", "rec_t",
+                 "bucket_node_start", "node_range", "node_box", "b_max", "a_max", "leaf_size")
+
+    @classmethod
+    def build(cls, a, b=None, phi=None, bucket_start=None, bucket_min_a=None, leaf_size=32):
+        """Build from arrays, or from one record-set object (attributes a, b, phi, bucket_start,
+        bucket_min_a) passed as the first argument. bucket_min_a defaults to a[bucket_start[k]]."""
+        if b is None and phi is None and bucket_start is None:
+            a, b, phi, bucket_start, bucket_min_a = _record_arrays(a)
+        elif b is None or phi is None or bucket_start is None:
+            raise RecordSetError("RecordIndex.build needs a, b, phi and bucket_start")
+        if isinstance(leaf_size, bool) or not isinstance(leaf_size, (int, np.integer)) or leaf_size < 1:
+            raise RecordSetError(f"leaf_size must be an integer >= 1, got {leaf_size!r}")
+        a, b, phi, bs, bma = _check_records(a, b, phi, bucket_start, bucket_min_a)
+        perm, bns, node_range, node_box = _build_trees(a, b, phi, bs, int(leaf_size))
+        self = object.__new__(cls)
+        self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a = a, b, phi, bs, bma
+        self.perm = perm
+        # Tree-order rows (qx, qy, a, cos phi, sin phi, b) so leaves read memory sequentially.
+        cp, sp = np.cos(phi[perm]), np.sin(phi[perm])
+        self.rec_t = np.ascontiguousarray(np.stack([b[perm] * cp, b[perm] * sp, a[perm], cp, sp, b[perm]], axis=1))
+        self.bucket_node_start, self.node_range, self.node_box = bns, node_range, node_box
+        self.b_max = float(b.max()) if len(b) else 0.0
+        self.a_max = float(np.abs(a).max()) if len(a) else 0.0
+        self.leaf_size = int(leaf_size)
+        for name in ("a", "b", "phi", "bucket_start", "bucket_min_a", "perm", "rec_t",
+                     "bucket_node_start", "node_range", "node_box"):
+            getattr(self, name).setflags(write=False)
+        return self
+
+    @property
+    def n_records(self) -> int:
+        return int(self.a.shape[0])
+
+    @property
+    def n_buckets(self) -> int:
+        return int(self.bucket_start.shape[0] - 1)
+
+    def full_args(self):
+        """Leading arguments of `choose_full`."""
+        return self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a
+
+    def pruned_args(self):
+        """Leading arguments of `choose_pruned`."""
+        return (self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a, self.perm, self.rec_t,
+                self.bucket_node_start, self.node_range, self.node_box, self.b_max, self.a_max)
+
+    def run(self, kernel_fn, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed,
+            lines, line_count, out_vel, out_rec):
+        """Call `choose_full` or `choose_pruned` on this index. Fast path: shapes and dtypes are checked,
+        values are not (use `choose` for full validation)."""
+        # Contiguous copies of strided inputs (no dtype change): avoids compiling another specialisation.
+        weights, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count = (
+            x if not isinstance(x, np.ndarray) or x.flags.c_contiguous else np.ascontiguousarray(x)
+            for x in (weights, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count))
+        n = _check_shapes(weights, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count,
+                          out_vel, out_rec)
+        if kernel_fn is choose_full:
+            lead = self.full_args()
+        elif kernel_fn is choose_pruned:
+            lead = self.pruned_args()
+        else:
+            raise StepError("kernel_fn must be choose_full or choose_pruned")
+        if n:
+            kernel_fn(*lead, weights, int(z), bool(strict), v_now, v_pref, nav_dir, v_safe, v_group, max_speed,
+                      lines, line_count, out_vel, out_rec)
+
+
+def _check_shapes(weights, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, out_vel,
+                  out_rec):
+    def need(name, x, dtype, shape):
+        if not isinstance(x, np.ndarray) or x.dtype != dtype or not x.flags.c_contiguous or x.shape != shape:
+            got = f"{x.dtype} {x.shape}" if isinstance(x, np.ndarray) else type(x).__name__
+            raise StepError(f"{name} must be a C-contiguous {np.dtype(dtype).name} array of shape {shape}, "
+                            f"got {got}")
+    if not isinstance(v_now, np.ndarray) or v_now.ndim != 2:
+        raise StepError("v_now must be a float64 array of shape (n, 2)")
+    n = v_now.shape[0]
+    need("weights", weights, np.float64, (6,))
+    for name, x in (("v_now", v_now), ("v_pref", v_pref), ("nav_dir", nav_dir), ("v_safe", v_safe),
+                    ("v_group", v_group)):
+        need(name, x, np.float64, (n, 2))
+    need("max_speed", max_speed, np.float64, (n,))
+    if not isinstance(lines, np.ndarray) or lines.ndim != 3:
+        raise StepError("lines must be a float64 array of shape (n, L, 4)")
+    need("lines", lines, np.float64, (n, lines.shape[1], 4))
+    need("line_count", line_count, np.int32, (n,))
+    need("out_vel", out_vel, np.float64, (n, 2))
+    need("out_rec", out_rec, np.int32, (n,))
+    if not (out_vel.flags.writeable and out_rec.flags.writeable):
+        raise StepError("out_vel and out_rec must be writeable")
+    if n and (line_count.min() < 0 or line_count.max() > lines.shape[1]):
+        raise StepError(f"line_count must lie in 0..{lines.shape[1]} (lines.shape[1])")
+    return n
+
+
+def choose(records, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines=None,
+           line_count=None, *, method="pruned", out_vel=None, out_rec=None):
+    """Validated data-driven choice for n agents. Returns (velocity float64[n,2], record int32[n]).
+
+    records: a RecordIndex (needed for method="pruned" to be fast; other forms build one per call),
+    a record-set object or (a, b, phi, bucket_start[, bucket_min_a]). weights: 6 finite values >= 0
+    (similarity, consistency, expectation, direction, avoidance, group); a NaN row of v_group drops
+    that agent's group term. z: search width >= 0.
+    lines/line_count: half-planes (n, L, 4) / int32[n]; None means no lines. Record -1 means the
+    agent takes v_safe (no eligible record). Nothing is written when an argument is invalid.
+    """
+    if method not in ("pruned", "full"):
+        raise StepError(f"method must be 'pruned' or 'full', got {method!r}")
+    if isinstance(z, bool) or not isinstance(z, (int, np.integer)) or z < 0:
+        raise StepError(f"z (search width) must be an integer >= 0, got {z!r}")
+    if not isinstance(strict, (bool, np.bool_)):
+        raise StepError(f"strict must be a bool, got {strict!r}")
+    w = _as_f64("weights", weights, StepError)
+    if w.shape != (6,) or not np.isfinite(w).all() or (w < 0).any():
+        raise StepError(f"weights must be 6 finite values >= 0, got {w!r}")
+    vn = _as_f64("v_now", v_now, StepError, 2)
+    n = vn.shape[0]
+    arrs = {}
+    for name, x in (("v_now", vn), ("v_pref", v_pref), ("nav_dir", nav_dir), ("v_safe", v_safe),
+                    ("v_group", v_group)):
+        arr = _as_f64(name, x, StepError, 2)
+        if arr.shape != (n, 2):
+            raise StepError(f"{name} must have shape ({n}, 2), got {arr.shape}")
+        bad = ~np.isfinite(arr)
+        if name == "v_group":  # a whole NaN row means "not in a group"
+            bad &= ~np.isnan(arr).all(axis=1, keepdims=True)
+        if bad.any():
+            raise StepError(f"{name}[{int(np.argmax(bad.any(axis=1)))}] is not finite")
+        arrs[name] = arr
+    vmax = _as_f64("max_speed", max_speed, StepError)
+    if vmax.shape != (n,) or np.isnan(vmax).any() or (vmax < 0).any():
+        raise StepError(f"max_speed must be {n} values >= 0 (inf allowed), got shape {vmax.shape}")
+    if lines is None:
+        lines = np.zeros((n, 0, 4))
+    ln = _as_f64("lines", lines, StepError, 3)
+    if ln.shape[0] != n or ln.shape[2] != 4:
+        raise StepError(f"lines must have shape ({n}, L, 4), got {ln.shape}")
+    lc = np.zeros(n, np.int32) if line_count is None else np.asarray(line_count)
+    if lc.shape != (n,) or not np.issubdtype(lc.dtype, np.integer):
+        raise StepError(f"line_count must be {n} integers")
+    if n and (lc.min() < 0 or lc.max() > ln.shape[1]):
+        raise StepError(f"line_count must lie in 0..{ln.shape[1]} (lines.shape[1])")
+    lc = np.ascontiguousarray(lc, dtype=np.int32)
+    used = np.arange(ln.shape[1])[None, :] < lc[:, None]
+    if not np.isfinite(ln[used]).all():
+        raise StepError("lines holds a non-finite value in a used half-plane")
+    if isinstance(records, RecordIndex):
+        index = records
+    elif method == "pruned":
+        index = RecordIndex.build(*_record_arrays(records))
+    else:
+        index = None
+        full = _check_records(*_record_arrays(records))
+    if out_vel is None:
+        out_vel = np.empty((n, 2))
+    if out_rec is None:
+        out_rec = np.empty(n, np.int32)
+    _check_shapes(w, arrs["v_now"], arrs["v_pref"], arrs["nav_dir"], arrs["v_safe"], arrs["v_group"], vmax, ln,
+                  lc, out_vel, out_rec)
+    if n == 0:
+        return out_vel, out_rec
+    args = (w, int(z), bool(strict), arrs["v_now"], arrs["v_pref"], arrs["nav_dir"], arrs["v_safe"],
+            arrs["v_group"], vmax, ln, lc, out_vel, out_rec)
+    if method == "pruned":
+        choose_pruned(*index.pruned_args(), *args)
+    else:
+        choose_full(*(index.full_args() if index is not None else full), *args)
+    return out_vel, out_rec

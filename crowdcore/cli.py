@@ -1,0 +1,158 @@
+"""The `crowdcore` command line."""
+import argparse
+import json
+import os
+import sys
+import time
+
+import numpy as np
+
+from .errors import CrowdError
+
+CAUTION = ("Caution: crowd and evacuation results from crowdcore support, and never replace, the analysis "
+           "required by local codes and licensed fire-safety practice.")
+
+
+def bundled_scenes():
+    """Name -> path of the scenes shipped with the package."""
+    from importlib import resources
+    from pathlib import Path
+    try:
+        root = resources.files("crowdcore.scenes")
+    except ModuleNotFoundError:  # running from a source checkout: the scenes live in samples/
+        root = Path(__file__).resolve().parent.parent / "samples" / "scenes"
+    return {p.name[:-5]: str(p) for p in sorted(root.iterdir(), key=lambda p: p.name) if p.name.endswith(".toml")}
+
+
+def resolve_scene(name_or_path):
+    if os.path.exists(name_or_path):
+        return name_or_path
+    scenes = bundled_scenes()
+    if name_or_path in scenes:
+        return scenes[name_or_path]
+    raise CrowdError(f"scene {name_or_path!r}: no such file and no bundled scene of that name "
+                     f"(bundled: {', '.join(scenes)})")
+
+
+def run_command(args):
+    from . import _jit
+    from .invariants import wall_crossings
+    from .pictures import Trace, write_gif, write_summary_png
+    from .scenario import load_scenario
+
+    if args.threads:
+        _jit.set_threads(args.threads)
+    path = resolve_scene(args.scene)
+    world = load_scenario(path)
+    frames = args.frames or world.default_frames
+    start_agents = world.agent_count
+    every = max(1, frames // 200)
+    trace = Trace(every=every, max_frames=frames // every + 2)
+    trace.capture(world)
+    worst_gap, overlaps, crossings, blocked, speeds = np.inf, 0, 0, 0, []
+    step_ms = []
+    from tqdm import tqdm
+    for _ in tqdm(range(frames), desc=os.path.basename(path), unit="frame", disable=args.quiet):
+        prev_ids, prev_pos = world.ids.copy(), world.positions.copy()
+        t0 = time.perf_counter()
+        st = world.step(args.dt)
+        step_ms.append((time.perf_counter() - t0) * 1e3)
+        worst_gap = min(worst_gap, st["min_gap"])
+        overlaps += st["overlaps"]
+        blocked += st["blocked_moves"]
+        crossings += len(wall_crossings(world, prev_ids, prev_pos)[0])
+        if world.agent_count:
+            speeds.append(float(np.linalg.norm(world.velocities, axis=1).mean()))
+        trace.capture(world)
+        if world.agent_count == 0 and not args.keep_going:
+            break
+    summary = {
+        "scene": world.name or os.path.basename(path),
+        "agents_at_start": start_agents,
+        "agents_left": world.agent_count,
+        "frames": world.frame,
+        "simulated_s": round(world.time, 3),
+        "ms_per_frame_median": round(float(np.median(step_ms[1:] or step_ms)), 3),
+        "arrivals": world.arrived_total,
+        "min_separation_m": None if not np.isfinite(worst_gap) else round(float(worst_gap), 4),
+        "overlap_pair_frames": overlaps,
+        "wall_crossings": crossings,
+        "moves_stopped_at_walls": blocked,
+        "mean_speed_m_s": round(float(np.mean(speeds)), 3) if speeds else 0.0,
+        "avoidance": world.params.avoidance,
+    }
+    if not args.no_pictures:
+        os.makedirs(args.out, exist_ok=True)
+        stem = os.path.join(args.out, os.path.splitext(os.path.basename(path))[0])
+        write_gif(world, trace, stem + ".gif")
+        write_summary_png(world, trace, stem + ".png")
+        summary["pictures"] = [stem + ".gif", stem + ".png"]
+    if args.json:
+        print(json.dumps(summary))
+    else:
+        width = max(len(k) for k in summary)
+        for k, v in summary.items():
+            print(f"{k:<{width}}  {v}")
+        print(CAUTION)
+    return 0
+
+
+def records_build_command(args):
+    from .records import records_from_trajectories
+    rs = records_from_trajectories(args.csv, fps=args.fps, buckets=args.buckets, max_speed=args.max_speed,
+                                   progress=not args.quiet)
+    rs.save(args.output)
+    print(f"{args.output}: {rs.n_records} records in {rs.n_buckets} buckets, sampled every {rs.dt:g} s, "
+          f"hash {rs.content_hash[:16]}")
+    return 0
+
+
+def scenes_command(args):
+    for name, path in bundled_scenes().items():
+        print(f"{name:<12} {path}")
+    return 0
+
+
+def build_parser():
+    p = argparse.ArgumentParser(prog="crowdcore", description="Data-driven crowd runtime: run scenes, build motion records.")
+    sub = p.add_subparsers(dest="command", required=True)
+
+    r = sub.add_parser("run", help="run a scenario and write a summary and pictures")
+    r.add_argument("scene", nargs="?", default="crossing", help="scenario file or bundled scene name (default: crossing)")
+    r.add_argument("--frames", type=int, default=None, help="frames to run (default: the scenario's own)")
+    r.add_argument("--dt", type=float, default=None, help="seconds per frame (default: the scenario's params.dt)")
+    r.add_argument("--out", default="crowdcore-out", help="folder for the GIF and PNG (default: crowdcore-out)")
+    r.add_argument("--threads", type=int, default=0, help="worker threads (default: all cores)")
+    r.add_argument("--no-pictures", action="store_true", help="skip the GIF and PNG")
+    r.add_argument("--keep-going", action="store_true", help="keep stepping after every agent has arrived")
+    r.add_argument("--json", action="store_true", help="print the summary as one JSON object")
+    r.add_argument("--quiet", action="store_true", help="no progress bar")
+    r.set_defaults(func=run_command)
+
+    rec = sub.add_parser("records", help="motion-record sets")
+    rsub = rec.add_subparsers(dest="records_command", required=True)
+    b = rsub.add_parser("build", help="build a record set from trajectory CSV files (frame,id,x,y)")
+    b.add_argument("csv", nargs="+", help="trajectory files")
+    b.add_argument("--fps", type=float, required=True, help="frames per second of the recordings")
+    b.add_argument("--buckets", type=int, default=100, help="speed buckets (default 100)")
+    b.add_argument("--max-speed", type=float, default=4.0, help="reject samples faster than this, m/s (default 4)")
+    b.add_argument("-o", "--output", required=True, help="record-set file to write")
+    b.add_argument("--quiet", action="store_true")
+    b.set_defaults(func=records_build_command)
+
+    s = sub.add_parser("scenes", help="list the bundled scenes")
+    s.set_defaults(func=scenes_command)
+    return p
+
+
+def main(argv=None):
+    args = build_parser().parse_args(argv)
+    try:
+        return args.func(args)
+    except CrowdError as e:
+        print(f"crowdcore: error: {e}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    sys.exit(main())

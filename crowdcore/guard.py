@@ -1,0 +1,104 @@
+"""Contact guard: the last word on every chosen velocity in strict mode, so that no two agents ever
+come to overlap and no agent comes closer than its radius to a wall, whatever the model chose.
+
+Why it holds. For every pair (i, j) with surface gap g >= 0 and unit direction n from i to j, agent
+i may move at most g/2 towards j in this step: n . v_i dt <= g/2. Agent j obeys the mirrored bound,
+so the new centre distance is at least (p_j' - p_i') . n >= d - g/2 - g/2 = r_i + r_j: no overlap.
+Pairs farther apart than both agents can close in one step, (vmax_i + vmax_all) dt, are skipped,
+because they cannot touch. Walls get the half-plane n . v <= (d - r)/dt, which keeps the agent at
+least r from the segment over the step (see orca.wall_line). Velocity 0 satisfies every bound, so
+the projection is always feasible (except when an agent already touches a wall, where the wall
+bound pushes it out). Already overlapping pairs (g < 0) get n . v <= 0: an overlap never grows.
+
+The guarded velocity is the allowed velocity closest to the chosen one (a 2-D linear program):
+when the chosen velocity is already allowed it is returned bit for bit unchanged. Each agent reads
+only start-of-step positions, so neither row order nor thread count changes the result.
+"""
+import numpy as np
+from numba import prange
+
+from ._jit import kernel, parallel_kernel
+from .orca import solve_lines, wall_line
+from .spatial import _cell_of, _insert_sorted, walls_near
+
+CAPACITY = 48   # contact lines per agent; more neighbours than this cannot fit within reach
+_BLOCK = 64     # agents per parallel work item (scratch buffers shared within a block)
+
+
+@kernel
+def _guard_agent(i, pos, ids, radius, max_speed, vel_in, cell_start, cell_items, ox, oy, cell, nx, ny,
+                 vmax_all, rmax_all, walls, wall_start, wall_items, wox, woy, wc, wnx, wny, dt, ln, cand, best_d, best_j, proj):
+    px, py = pos[i, 0], pos[i, 1]
+    r = radius[i]
+    vmax = max_speed[i]
+    step_reach = (vmax + vmax_all) * dt
+    m = 0
+    nc = walls_near(px, py, r + vmax * dt + 1e-6, walls, wall_start, wall_items, wox, woy, wc, wnx, wny, cand)
+    for c in range(nc):
+        s = cand[c]
+        qx, qy, dx, dy, d = wall_line(px, py, vel_in[i, 0], vel_in[i, 1], r, walls[s, 0], walls[s, 1],
+                                      walls[s, 2], walls[s, 3], dt, dt)
+        if d - r > vmax * dt or m == ln.shape[0]:
+            continue
+        ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = qx, qy, dx, dy
+        m += 1
+    n_walls = m
+    # contacts: every agent whose gap could close this step, nearest first, ties by id
+    cap = best_d.shape[0]
+    count = 0
+    reach_max = r + rmax_all + step_reach
+    cx, cy = _cell_of(px, py, ox, oy, cell, nx, ny)
+    span = int(np.ceil(reach_max / cell))
+    for gy in range(max(cy - span, 0), min(cy + span, ny - 1) + 1):
+        for gx in range(max(cx - span, 0), min(cx + span, nx - 1) + 1):
+            g = gy * nx + gx
+            for s in range(cell_start[g], cell_start[g + 1]):
+                j = cell_items[s]
+                if j == i:
+                    continue
+                ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
+                d2 = ddx * ddx + ddy * ddy
+                gap = np.sqrt(d2) - r - radius[j]
+                if gap < step_reach:
+                    count = _insert_sorted(best_d, best_j, count, cap, d2, j, ids)
+    for s in range(count):
+        if m == ln.shape[0]:
+            break
+        j = best_j[s]
+        ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
+        d = np.sqrt(ddx * ddx + ddy * ddy)
+        if d > 0.0:
+            nxx, nyy = ddx / d, ddy / d
+        else:  # coincident: the lower id steps left along x, the other right
+            nxx, nyy = (1.0, 0.0) if ids[i] < ids[j] else (-1.0, 0.0)
+        gap = d - r - radius[j]
+        b = 0.5 * gap / dt if gap > 0.0 else 0.0
+        ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = nxx * b, nyy * b, -nyy, nxx
+        m += 1
+    # the chosen velocity is the optimisation target; when it is allowed it comes back unchanged
+    return solve_lines(ln, m, n_walls, vmax, vel_in[i, 0], vel_in[i, 1], proj)
+
+
+@parallel_kernel
+def contact_guard_phase(pos, ids, radius, max_speed, vel_in, cell_start, cell_items, ox, oy, cell, nx, ny,
+                        walls, wall_start, wall_items, wox, woy, wc, wnx, wny, dt, vel_out, changed):
+    n = pos.shape[0]
+    vmax_all = 0.0
+    rmax_all = 0.0
+    for i in range(n):
+        vmax_all = max(vmax_all, max_speed[i])
+        rmax_all = max(rmax_all, radius[i])
+    nblocks = (n + _BLOCK - 1) // _BLOCK
+    for b in prange(nblocks):
+        ln = np.empty((CAPACITY + 16, 4))
+        proj = np.empty((CAPACITY + 16, 4))
+        cand = np.empty(max(walls.shape[0], 1), np.int32)
+        best_d = np.empty(CAPACITY, np.float64)
+        best_j = np.empty(CAPACITY, np.int32)
+        for i in range(b * _BLOCK, min((b + 1) * _BLOCK, n)):
+            vx, vy = _guard_agent(i, pos, ids, radius, max_speed, vel_in, cell_start, cell_items, ox, oy, cell,
+                                  nx, ny, vmax_all, rmax_all, walls, wall_start, wall_items, wox, woy, wc, wnx, wny,
+                                  dt, ln, cand, best_d, best_j, proj)
+            changed[i] = vx != vel_in[i, 0] or vy != vel_in[i, 1]
+            vel_out[i, 0] = vx
+            vel_out[i, 1] = vy

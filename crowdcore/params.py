@@ -1,0 +1,101 @@
+"""World parameters: one validated, plain-data object (snapshots store it as a dict)."""
+from dataclasses import dataclass, field, fields, asdict
+import math
+
+from .errors import ScenarioError
+
+WEIGHT_NAMES = ("similarity", "consistency", "expectation", "direction", "avoidance", "group")
+AVOIDANCE_MODELS = ("orca", "social-force")
+SEARCH_METHODS = ("pruned", "full")
+
+DEFAULT_WEIGHTS = {
+    "similarity": 1.0,   # smooth change of velocity
+    "consistency": 1.0,  # the record starts from the present speed
+    "expectation": 1.0,  # preferred speed along the route
+    "direction": 0.5,    # follow the direction field
+    "avoidance": 3.0,    # stay near the collision-free velocity
+    "group": 1.0,        # hold the formation (only agents in a group)
+}
+
+
+@dataclass
+class Params:
+    """Everything that shapes a step, apart from scene and agents. Units: metres, seconds."""
+
+    dt: float = 0.1                       # default step when step() is called without dt
+    avoidance: str = "orca"               # "orca" or "social-force"
+    weights: dict = field(default_factory=lambda: dict(DEFAULT_WEIGHTS))
+    search_width: int = 3                 # buckets scanned on each side of the agent's speed bucket
+    strict: bool = True                   # candidates must satisfy the avoidance constraints
+    search: str = "pruned"                # "pruned" (indexed) or "full" scan; both pick the same record
+    neighbours: int = 10                  # K nearest neighbours considered
+    sense_radius: float = 2.5             # neighbours farther than this are ignored
+    nav_cell: float = 0.25                # navigation grid cell size
+    clearance: float = 0.25               # wall clearance used when rasterising the navigation grid
+    max_speed_factor: float = 1.3         # an agent's speed limit = factor x its preferred speed
+    orca_tau: float = 2.0                 # ORCA horizon for other agents (common practice)
+    orca_tau_walls: float = 0.5           # ORCA horizon for walls (common practice)
+    max_dt: float = 1.0                   # larger steps are refused
+
+    def __post_init__(self):
+        self.validate()
+
+    def validate(self, where="params"):
+        def bad(key, msg):
+            raise ScenarioError(f"{where}.{key}: {msg}")
+
+        def positive(key, value):
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
+                bad(key, f"must be a positive number, got {value!r}")
+
+        for key in ("dt", "sense_radius", "nav_cell", "max_speed_factor", "orca_tau", "orca_tau_walls", "max_dt"):
+            positive(key, getattr(self, key))
+        if isinstance(self.clearance, bool) or not isinstance(self.clearance, (int, float)) or not (0 <= self.clearance < 10):
+            bad("clearance", f"must be a number in [0, 10), got {self.clearance!r}")
+        if self.avoidance not in AVOIDANCE_MODELS:
+            bad("avoidance", f"must be one of {', '.join(AVOIDANCE_MODELS)}, got {self.avoidance!r}")
+        if self.search not in SEARCH_METHODS:
+            bad("search", f"must be one of {', '.join(SEARCH_METHODS)}, got {self.search!r}")
+        for key, hi in (("search_width", 1000), ("neighbours", 64)):
+            v = getattr(self, key)
+            if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= hi:
+                bad(key, f"must be an integer in 0..{hi}, got {v!r}")
+        if not isinstance(self.strict, bool):
+            bad("strict", f"must be true or false, got {self.strict!r}")
+        if not isinstance(self.weights, dict):
+            bad("weights", f"must be a table of {', '.join(WEIGHT_NAMES)}")
+        for key in self.weights:
+            if key not in WEIGHT_NAMES:
+                bad(f"weights.{key}", f"unknown weight; known: {', '.join(WEIGHT_NAMES)}")
+        merged = dict(DEFAULT_WEIGHTS)
+        merged.update(self.weights)
+        for key, v in merged.items():
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or v < 0:
+                bad(f"weights.{key}", f"must be a finite number >= 0, got {v!r}")
+            merged[key] = float(v)
+        self.weights = merged
+
+    def weight_vector(self):
+        import numpy as np
+        return np.array([self.weights[k] for k in WEIGHT_NAMES], dtype=np.float64)
+
+    def to_dict(self):
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, data, where="params"):
+        if not isinstance(data, dict):
+            raise ScenarioError(f"{where}: must be a table")
+        known = {f.name for f in fields(cls)}
+        for key in data:
+            if key not in known:
+                raise ScenarioError(f"{where}.{key}: unknown setting; known: {', '.join(sorted(known))}")
+        p = cls.__new__(cls)
+        defaults = cls()
+        for f in fields(cls):
+            value = data.get(f.name, getattr(defaults, f.name))
+            if f.name == "weights" and isinstance(value, dict):
+                value = dict(value)
+            setattr(p, f.name, value)
+        p.validate(where)
+        return p

@@ -1,0 +1,337 @@
+"""Data-driven choice: kernels against a slow pure-Python reference, pruned search against full scan.
+
+All record sets and agent states here are invented test data.
+"""
+import bisect
+import math
+import types
+
+import numba
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from crowdcore import choose as ch
+from crowdcore.errors import RecordSetError, StepError
+
+SETTINGS = dict(deadline=None, suppress_health_check=[HealthCheck.too_slow])
+
+
+# ---------------------------------------------------------------------------------------------
+# Slow, obvious reference (straight from the energy definition in the shared contract)
+
+def ref_heading(vn, vp, d):
+    s = math.sqrt(vn[0] * vn[0] + vn[1] * vn[1])
+    dn = math.sqrt(d[0] * d[0] + d[1] * d[1])
+    if s > 1e-9:
+        theta = math.atan2(vn[1], vn[0])
+    elif dn > 0.0:
+        theta = math.atan2(d[1], d[0])
+    elif vp[0] != 0.0 or vp[1] != 0.0:
+        theta = math.atan2(vp[1], vp[0])
+    else:
+        theta = 0.0
+    return theta, s, dn
+
+
+def ref_energy(a_r, b_r, phi_r, theta, s, dn, w, vn, vp, d, vs, vg):
+    ang = theta + phi_r
+    ca, sa = math.cos(ang), math.sin(ang)
+    u = (b_r * ca, b_r * sa)
+
+    def sq(p):
+        ex, ey = u[0] - p[0], u[1] - p[1]
+        return ex * ex + ey * ey
+
+    e = w[0] * sq(vn)
+    e += w[1] * ((a_r - s) * (a_r - s))
+    e += w[2] * sq(vp)
+    if dn > 0.0:
+        e += w[3] * (1.0 - (ca * d[0] + sa * d[1]) / dn)
+    e += w[4] * sq(vs)
+    e += w[5] * sq(vg)
+    return e, u
+
+
+def ref_choose(recs, w, z, strict, agents, i):
+    a, b, phi, bucket_start, bucket_min_a = recs
+    v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count = agents
+    vn, vp, d = [float(x) for x in v_now[i]], [float(x) for x in v_pref[i]], [float(x) for x in nav_dir[i]]
+    vs, vg = [float(x) for x in v_safe[i]], [float(x) for x in v_group[i]]
+    theta, s, dn = ref_heading(vn, vp, d)
+    nb = len(bucket_start) - 1
+    if len(a) == 0 or nb == 0:
+        return -1, tuple(vs)
+    k = min(max(bisect.bisect_right(list(bucket_min_a), s) - 1, 0), nb - 1)
+    lo, hi = max(0, k - z), min(nb - 1, k + z)
+    best, best_r, best_u = None, -1, None
+    for r in range(int(bucket_start[lo]), int(bucket_start[hi + 1])):
+        e, u = ref_energy(float(a[r]), float(b[r]), float(phi[r]), theta, s, dn, [float(x) for x in w],
+                          vn, vp, d, vs, vg)
+        if b[r] > max_speed[i] or math.isnan(e):
+            continue
+        if strict and any(ln[2] * (ln[1] - u[1]) - ln[3] * (ln[0] - u[0]) > 1e-9
+                          for ln in lines[i, :line_count[i]]):
+            continue
+        if best_r < 0 or e < best:
+            best, best_r, best_u = e, r, u
+    return (best_r, best_u) if best_r >= 0 else (-1, tuple(vs))
+
+
+# ---------------------------------------------------------------------------------------------
+# Invented data generators
+
+def make_records(rng, n, buckets, dup=0.05, ties_only=False):
+    a = np.clip(rng.normal(1.3, 0.3, n), 0.0, None)
+    slow = rng.random(n) < 0.05
+    a[slow] = np.abs(rng.normal(0.0, 0.03, slow.sum()))
+    b = np.clip(a + rng.normal(0.0, 0.05, n), 0.0, None)
+    b[slow & (rng.random(n) < 0.5)] = 0.0
+    phi = rng.normal(0.0, 0.08, n)
+    tail = rng.random(n) < 0.1
+    phi[tail] = rng.uniform(-np.pi, np.pi, tail.sum())
+    phi[rng.random(n) < 0.01] = np.pi
+    if ties_only and n:  # few distinct records, many exact copies
+        src = rng.integers(0, max(1, n // 20), n)
+        a, b, phi = a[src], b[src], phi[src]
+    elif n:
+        m = int(n * dup)
+        dst, src = rng.integers(0, n, m), rng.integers(0, n, m)
+        a[dst], b[dst], phi[dst] = a[src], b[src], phi[src]
+    order = np.argsort(a, kind="stable")
+    a, b, phi = a[order], b[order], phi[order]
+    start = (np.arange(buckets + 1, dtype=np.int64) * n // buckets).astype(np.int32)
+    bma = a[np.minimum(start[:-1], n - 1)].copy() if n else np.zeros(buckets)
+    return a, b, phi, start, bma
+
+
+def _unit(ang):
+    return np.stack([np.cos(ang), np.sin(ang)], axis=1)
+
+
+def make_agents(rng, n, lines_max=0, special=True):
+    heading = rng.uniform(-np.pi, np.pi, n)
+    speed = np.clip(rng.normal(1.2, 0.5, n), 0.0, None)
+    v_now = speed[:, None] * _unit(heading)
+    pa = heading + rng.normal(0.0, 0.3, n)
+    v_pref = rng.uniform(0.5, 1.8, n)[:, None] * _unit(pa)
+    nav_dir = _unit(pa) * rng.choice([1.0, 0.3, 2.0], n)[:, None]
+    v_safe = v_now + rng.normal(0.0, 0.2, (n, 2))
+    v_group = v_now + rng.normal(0.0, 0.3, (n, 2))
+    max_speed = rng.choice([np.inf, 2.0, 1.2, 0.5], n)
+    if special:
+        for arr in (v_now, v_pref, nav_dir, v_safe, v_group):
+            arr[rng.random(n) < 0.15] = 0.0
+        v_now[rng.random(n) < 0.05] = 1e-10  # below the heading threshold
+        v_now[rng.random(n) < 0.05] = rng.uniform(3, 8)  # far outside the records
+    L = lines_max
+    lines = np.zeros((n, L, 4))
+    if L:
+        lines[:, :, :2] = v_now[:, None, :] + rng.normal(0.0, 0.5, (n, L, 2))
+        lines[:, :, 2:] = rng.normal(0.0, 1.0, (n, L, 2))
+    line_count = rng.integers(0, L + 1, n).astype(np.int32)
+    return v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count
+
+
+WEIGHT_CHOICES = [
+    [1, 1, 1, 1, 1, 1], [0, 0, 0, 0, 0, 0], [1, 0, 0, 0, 0, 0], [0, 1, 0, 0, 0, 0], [0, 0, 0, 1, 0, 0],
+    [0, 1, 0, 1, 0, 0], [1e8, 1, 1, 1e-8, 1, 0], [1e-12, 1e12, 0, 5, 0, 0], [2.5, 0.3, 1.7, 4.0, 0.0, 0.9],
+    [1e300, 1, 1e300, 1, 0, 0],  # energies overflow: the pruned search falls back to the scan
+]
+
+
+@st.composite
+def weights_st(draw):
+    if draw(st.booleans()):
+        return np.array(draw(st.sampled_from(WEIGHT_CHOICES)), float)
+    return np.array(draw(st.lists(st.sampled_from([0.0, 0.1, 1.0, 3.0, 1e6]), min_size=6, max_size=6)), float)
+
+
+def run(kernel_fn, index, w, z, strict, agents):
+    n = agents[0].shape[0]
+    vel, rec = np.full((n, 2), np.nan), np.full(n, -7, np.int32)
+    index.run(kernel_fn, w, z, strict, *agents, vel, rec)
+    return vel, rec
+
+
+# ---------------------------------------------------------------------------------------------
+# (a) kernel full scan == Python reference
+
+@settings(max_examples=40, **SETTINGS)
+@given(seed=st.integers(0, 2**32 - 1), n_rec=st.integers(0, 250), buckets=st.integers(1, 30),
+       z=st.integers(0, 8), strict=st.booleans(), w=weights_st(), ties=st.booleans())
+def test_full_scan_matches_reference(seed, n_rec, buckets, z, strict, w, ties):
+    rng = np.random.default_rng(seed)
+    recs = make_records(rng, n_rec, buckets, ties_only=ties)
+    agents = make_agents(rng, 12, lines_max=3)
+    index = ch.RecordIndex.build(*recs)
+    vel, rec = run(ch.choose_full, index, w, z, strict, agents)
+    for i in range(12):
+        r_ref, u_ref = ref_choose(recs, w, z, strict, agents, i)
+        assert rec[i] == r_ref, (i, rec[i], r_ref)
+        # reference: same formula in Python floats (libm cos/sin); equal to the last bit in practice
+        np.testing.assert_allclose(vel[i], u_ref, rtol=0, atol=1e-12)
+
+
+def test_energy_kernel_matches_reference_bitwise():
+    rng = np.random.default_rng(3)
+    w = np.array([1.0, 0.5, 2.0, 3.0, 0.25, 1.5])
+    for _ in range(300):
+        a_r, b_r = rng.uniform(0, 2, 2)
+        phi_r = rng.uniform(-np.pi, np.pi)
+        vn, vp, d, vs, vg = rng.normal(0, 1, (5, 2))
+        theta, s, dn = ch.agent_frame(vn[0], vn[1], vp[0], vp[1], d[0], d[1])
+        assert (theta, s, dn) == ref_heading(list(vn), list(vp), list(d))
+        e = ch.energy(a_r, b_r, phi_r, theta, s, dn, w, *vn, *vp, *d, *vs, *vg)
+        e_ref, u_ref = ref_energy(a_r, b_r, phi_r, theta, s, dn, list(w), vn, vp, d, vs, vg)
+        assert e == e_ref
+        assert ch.record_velocity(b_r, phi_r, theta) == u_ref
+
+
+# ---------------------------------------------------------------------------------------------
+# (b) pruned == full scan, exactly
+
+@settings(max_examples=100, **SETTINGS)
+@given(seed=st.integers(0, 2**32 - 1), n_rec=st.integers(0, 4000), buckets=st.integers(1, 100),
+       z=st.integers(0, 8), strict=st.booleans(), w=weights_st(), ties=st.booleans(),
+       leaf=st.sampled_from([1, 2, 5, 32]), lines_max=st.integers(0, 4))
+def test_pruned_equals_full(seed, n_rec, buckets, z, strict, w, ties, leaf, lines_max):
+    rng = np.random.default_rng(seed)
+    recs = make_records(rng, n_rec, buckets, ties_only=ties)
+    agents = make_agents(rng, 200, lines_max=lines_max)
+    index = ch.RecordIndex.build(*recs, leaf_size=leaf)
+    vel_f, rec_f = run(ch.choose_full, index, w, z, strict, agents)
+    vel_p, rec_p = run(ch.choose_pruned, index, w, z, strict, agents)
+    np.testing.assert_array_equal(rec_p, rec_f)
+    assert np.array_equal(vel_p, vel_f)
+    none = rec_f < 0
+    np.testing.assert_array_equal(vel_f[none], agents[3][none])
+
+
+def test_pruned_equals_full_realistic_set():
+    # Invented: 20k records / 2k agents / B=100 / z=3, the everyday configuration at reduced size.
+    rng = np.random.default_rng(11)
+    recs = make_records(rng, 20_000, 100)
+    agents = make_agents(rng, 2000, special=False)
+    index = ch.RecordIndex.build(*recs)
+    for strict, w in ((False, np.ones(6)), (False, np.array([1, 3, 1, 2, 1, 0.5])), (True, np.ones(6))):
+        vel_f, rec_f = run(ch.choose_full, index, w, 3, strict, agents)
+        vel_p, rec_p = run(ch.choose_pruned, index, w, 3, strict, agents)
+        np.testing.assert_array_equal(rec_p, rec_f)
+        assert np.array_equal(vel_p, vel_f)
+
+
+def test_exact_ties_pick_lowest_index():
+    # Four identical records: every search must return the first of them.
+    a = np.array([1.0, 1.3, 1.3, 1.3, 1.3, 1.6])
+    b = np.array([1.0, 1.3, 1.3, 1.3, 1.3, 1.6])
+    phi = np.array([0.3, 0.0, 0.0, 0.0, 0.0, -0.3])
+    index = ch.RecordIndex.build(a, b, phi, np.array([0, 2, 4, 6], np.int32), leaf_size=1)
+    agents = make_agents(np.random.default_rng(0), 1, special=False)
+    agents[0][:] = [[1.3, 0.0]]
+    for arr in agents[1:5]:
+        arr[:] = agents[0]
+    agents[5][:] = np.inf
+    for fn in (ch.choose_full, ch.choose_pruned):
+        vel, rec = run(fn, index, np.ones(6), 3, False, agents)
+        assert rec[0] == 1
+
+
+def test_empty_and_ineligible():
+    agents = make_agents(np.random.default_rng(1), 5, special=False)
+    empty = ch.RecordIndex.build(np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(3, np.int32))
+    for fn in (ch.choose_full, ch.choose_pruned):
+        vel, rec = run(fn, empty, np.ones(6), 3, True, agents)
+        assert (rec == -1).all() and np.array_equal(vel, agents[3])
+    recs = make_records(np.random.default_rng(2), 500, 10)
+    index = ch.RecordIndex.build(*recs)
+    slow = list(agents)
+    slow[5] = np.full(5, -0.0)  # max speed 0: only records with b == 0 are eligible
+    vf, rf = run(ch.choose_full, index, np.ones(6), 3, False, slow)
+    vp, rp = run(ch.choose_pruned, index, np.ones(6), 3, False, slow)
+    assert np.array_equal(rf, rp) and np.array_equal(vf, vp)
+    assert all(r == -1 or recs[1][r] == 0.0 for r in rf)
+
+
+# ---------------------------------------------------------------------------------------------
+# (c) independent of agent order and of thread count
+
+@settings(max_examples=10, **SETTINGS)
+@given(seed=st.integers(0, 2**32 - 1), strict=st.booleans(), w=weights_st())
+def test_agent_order_and_threads(seed, strict, w):
+    rng = np.random.default_rng(seed)
+    recs = make_records(rng, 3000, 50)
+    agents = make_agents(rng, 400, lines_max=3)
+    index = ch.RecordIndex.build(*recs, leaf_size=8)
+    perm = rng.permutation(400)
+    shuffled = tuple(x[perm] for x in agents)
+    old = numba.get_num_threads()
+    try:
+        for fn in (ch.choose_full, ch.choose_pruned):
+            numba.set_num_threads(1)
+            v1, r1 = run(fn, index, w, 3, strict, agents)
+            numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+            v2, r2 = run(fn, index, w, 3, strict, agents)
+            v3, r3 = run(fn, index, w, 3, strict, shuffled)
+            assert np.array_equal(r1, r2) and np.array_equal(v1, v2)
+            assert np.array_equal(r3, r1[perm]) and np.array_equal(v3, v1[perm])
+    finally:
+        numba.set_num_threads(old)
+
+
+# ---------------------------------------------------------------------------------------------
+# Python surface
+
+def test_choose_wrapper_and_record_set_objects():
+    rng = np.random.default_rng(5)
+    recs = make_records(rng, 2000, 20)
+    agents = make_agents(rng, 50, lines_max=2)
+    w = np.ones(6)
+    rs = types.SimpleNamespace(a=recs[0], b=recs[1], phi=recs[2], bucket_start=recs[3], bucket_min_a=recs[4])
+    index = ch.RecordIndex.build(rs)
+    assert index.n_records == 2000 and index.n_buckets == 20
+    v0, r0 = ch.choose(index, w, 3, True, *agents)
+    for records, method in ((index, "full"), (rs, "full"), (rs, "pruned"), (recs, "full"), (recs[:4], "pruned")):
+        v, r = ch.choose(records, list(w), 3, True, *agents, method=method)
+        assert np.array_equal(r, r0) and np.array_equal(v, v0)
+    v, r = ch.choose(index, w, 3, False, *agents[:6])  # no half-planes given
+    assert r.dtype == np.int32 and v.shape == (50, 2)
+
+
+def test_bad_input_is_rejected_and_nothing_written():
+    rng = np.random.default_rng(6)
+    recs = make_records(rng, 300, 5)
+    index = ch.RecordIndex.build(*recs)
+    agents = make_agents(rng, 4, lines_max=2)
+    out_vel, out_rec = np.full((4, 2), 7.0), np.full(4, 7, np.int32)
+
+    def call(**kw):
+        args = dict(records=index, weights=np.ones(6), z=3, strict=False, v_now=agents[0], v_pref=agents[1],
+                    nav_dir=agents[2], v_safe=agents[3], v_group=agents[4], max_speed=agents[5],
+                    lines=agents[6], line_count=agents[7], out_vel=out_vel, out_rec=out_rec)
+        args.update(kw)
+        return ch.choose(**args)
+
+    bad_nan = agents[1].copy()
+    bad_nan[2, 0] = np.nan
+    for kw, word in ((dict(weights=[1, 1, 1, -1, 1, 1]), "weights"), (dict(weights=np.ones(5)), "weights"),
+                     (dict(z=-1), "z"), (dict(z=1.5), "z"), (dict(strict=1), "strict"),
+                     (dict(v_pref=bad_nan), "v_pref[2]"), (dict(v_safe=np.zeros((3, 2))), "v_safe"),
+                     (dict(max_speed=np.full(4, np.nan)), "max_speed"),
+                     (dict(line_count=np.full(4, 3, np.int32)), "line_count"),
+                     (dict(method="fast"), "method"), (dict(out_rec=np.zeros(4, np.int64)), "out_rec")):
+        with pytest.raises(StepError, match=word.replace("[", r"\[")):
+            call(**kw)
+    assert (out_vel == 7.0).all() and (out_rec == 7).all()
+    a, b, phi, bs, bma = recs
+    with pytest.raises(RecordSetError, match="negative"):
+        ch.RecordIndex.build(a, -b, phi, bs)
+    with pytest.raises(RecordSetError, match="sorted"):
+        ch.RecordIndex.build(a[::-1], b, phi, bs)
+    with pytest.raises(RecordSetError, match="bucket_start"):
+        ch.RecordIndex.build(a, b, phi, bs[:-1])
+    with pytest.raises(RecordSetError, match="phi"):
+        ch.RecordIndex.build(a, b, phi + 4.0, bs)
+    with pytest.raises(StepError, match="out_vel"):
+        index.run(ch.choose_pruned, np.ones(6), 3, False, *agents, np.zeros((4, 3)), out_rec)

@@ -113,6 +113,48 @@ def scenes_command(args):
     return 0
 
 
+def replay_command(args):
+    from .recording import replay
+    from .pictures import Trace, write_gif
+    trace = Trace(every=max(1, args.every)) if args.gif else None
+    report = replay(args.recording, on_frame=trace.capture if trace else None, progress=not args.quiet)
+    print(report)
+    if args.gif and report.world is not None:
+        write_gif(report.world, trace, args.gif)
+        print(f"wrote {args.gif}")
+    return 0 if report.identical else 1
+
+
+def cabi_command(args):
+    from . import cabi
+    if args.build:
+        out = cabi.build_library(args.out)
+        print(out)
+    if args.cflags:
+        print(cabi.cflags(args.out))
+    if args.libs:
+        print(cabi.libs(args.out))
+    if not (args.build or args.cflags or args.libs):
+        print(cabi.describe(args.out))
+    return 0
+
+
+def verify_command(args):
+    from .verify import run_verification
+    report = run_verification(args.out, quick=args.quick, progress=not args.quiet)
+    print(f"wrote {report}")
+    print(CAUTION)
+    return 0
+
+
+def budget_command(args):
+    from .budget import run_budget
+    result = run_budget(quick=args.quick, out_dir=args.out, progress=not args.quiet)
+    import json as _json
+    print(_json.dumps(result) if args.json else _json.dumps(result, indent=2))
+    return 0
+
+
 def build_parser():
     p = argparse.ArgumentParser(prog="crowdcore", description="Data-driven crowd runtime: run scenes, build motion records.")
     sub = p.add_subparsers(dest="command", required=True)
@@ -142,6 +184,33 @@ def build_parser():
 
     s = sub.add_parser("scenes", help="list the bundled scenes")
     s.set_defaults(func=scenes_command)
+
+    rp = sub.add_parser("replay", help="replay a recording, verify every frame's hash, optionally render a GIF")
+    rp.add_argument("recording", help="recording file written by crowdcore.recording.Recorder")
+    rp.add_argument("--gif", default=None, help="write the replay as an animated GIF here")
+    rp.add_argument("--every", type=int, default=1, help="GIF: keep every Nth frame (default 1)")
+    rp.add_argument("--quiet", action="store_true")
+    rp.set_defaults(func=replay_command)
+
+    c = sub.add_parser("cabi", help="build the C library and print compiler flags for hosts")
+    c.add_argument("--build", action="store_true", help="build libcrowdcore and its header")
+    c.add_argument("--cflags", action="store_true", help="print the include flags")
+    c.add_argument("--libs", action="store_true", help="print the link flags")
+    c.add_argument("--out", default=None, help="folder of the built library (default: inside the package)")
+    c.set_defaults(func=cabi_command)
+
+    v = sub.add_parser("verify", help="run the verification suite and write a Markdown report with plots")
+    v.add_argument("--out", default="crowdcore-verify", help="report folder (default: crowdcore-verify)")
+    v.add_argument("--quick", action="store_true", help="fewer agents and repeats")
+    v.add_argument("--quiet", action="store_true")
+    v.set_defaults(func=verify_command)
+
+    bg = sub.add_parser("budget", help="agents-per-frame budget benchmark (JSON + plots)")
+    bg.add_argument("--quick", action="store_true", help="finish in under 2 minutes")
+    bg.add_argument("--json", action="store_true", help="print one JSON line")
+    bg.add_argument("--out", default="crowdcore-budget", help="folder for JSON and plots")
+    bg.add_argument("--quiet", action="store_true")
+    bg.set_defaults(func=budget_command)
     return p
 
 

@@ -26,7 +26,7 @@ _BLOCK = 64     # agents per parallel work item (scratch buffers shared within a
 
 
 @kernel
-def _guard_agent(i, pos, ids, radius, max_speed, vel_in, cell_start, cell_items, ox, oy, cell, nx, ny,
+def _guard_agent(i, pos, ids, radius, max_speed, vel_in, nbr, nbr_count, sense_radius, cell_start, cell_items, ox, oy, cell, nx, ny,
                  vmax_all, rmax_all, walls, wall_start, wall_items, wox, woy, wc, wnx, wny, dt, ln, cand, best_d, best_j, proj):
     px, py = pos[i, 0], pos[i, 1]
     r = radius[i]
@@ -47,20 +47,39 @@ def _guard_agent(i, pos, ids, radius, max_speed, vel_in, cell_start, cell_items,
     cap = best_d.shape[0]
     count = 0
     reach_max = r + rmax_all + step_reach
-    cx, cy = _cell_of(px, py, ox, oy, cell, nx, ny)
-    span = int(np.ceil(reach_max / cell))
-    for gy in range(max(cy - span, 0), min(cy + span, ny - 1) + 1):
-        for gx in range(max(cx - span, 0), min(cx + span, nx - 1) + 1):
-            g = gy * nx + gx
-            for s in range(cell_start[g], cell_start[g + 1]):
-                j = cell_items[s]
-                if j == i:
-                    continue
-                ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
-                d2 = ddx * ddx + ddy * ddy
-                gap = np.sqrt(d2) - r - radius[j]
-                if gap < step_reach:
-                    count = _insert_sorted(best_d, best_j, count, cap, d2, j, ids)
+    k = nbr.shape[1]
+    kc = nbr_count[i]
+    complete = reach_max <= sense_radius and kc < k
+    if kc == k and k > 0:
+        jl = nbr[i, k - 1]
+        dl2 = (pos[jl, 0] - px) ** 2 + (pos[jl, 1] - py) ** 2
+        complete = dl2 > reach_max * reach_max
+    if complete:
+        # the sense list (sorted by (distance^2, id), the order used below) holds every agent
+        # within reach_max: no need to search the hash again
+        for s in range(kc):
+            j = nbr[i, s]
+            ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
+            d2 = ddx * ddx + ddy * ddy
+            if np.sqrt(d2) - r - radius[j] < step_reach and count < cap:
+                best_d[count] = d2
+                best_j[count] = j
+                count += 1
+    if not complete:
+        cx, cy = _cell_of(px, py, ox, oy, cell, nx, ny)
+        span = int(np.ceil(reach_max / cell))
+        for gy in range(max(cy - span, 0), min(cy + span, ny - 1) + 1):
+            for gx in range(max(cx - span, 0), min(cx + span, nx - 1) + 1):
+                g = gy * nx + gx
+                for s in range(cell_start[g], cell_start[g + 1]):
+                    j = cell_items[s]
+                    if j == i:
+                        continue
+                    ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
+                    d2 = ddx * ddx + ddy * ddy
+                    gap = np.sqrt(d2) - r - radius[j]
+                    if gap < step_reach:
+                        count = _insert_sorted(best_d, best_j, count, cap, d2, j, ids)
     for s in range(count):
         if m == ln.shape[0]:
             break
@@ -80,7 +99,7 @@ def _guard_agent(i, pos, ids, radius, max_speed, vel_in, cell_start, cell_items,
 
 
 @parallel_kernel
-def contact_guard_phase(pos, ids, radius, max_speed, vel_in, cell_start, cell_items, ox, oy, cell, nx, ny,
+def contact_guard_phase(pos, ids, radius, max_speed, vel_in, nbr, nbr_count, sense_radius, cell_start, cell_items, ox, oy, cell, nx, ny,
                         walls, wall_start, wall_items, wox, woy, wc, wnx, wny, dt, vel_out, changed):
     n = pos.shape[0]
     vmax_all = 0.0
@@ -96,7 +115,7 @@ def contact_guard_phase(pos, ids, radius, max_speed, vel_in, cell_start, cell_it
         best_d = np.empty(CAPACITY, np.float64)
         best_j = np.empty(CAPACITY, np.int32)
         for i in range(b * _BLOCK, min((b + 1) * _BLOCK, n)):
-            vx, vy = _guard_agent(i, pos, ids, radius, max_speed, vel_in, cell_start, cell_items, ox, oy, cell,
+            vx, vy = _guard_agent(i, pos, ids, radius, max_speed, vel_in, nbr, nbr_count, sense_radius, cell_start, cell_items, ox, oy, cell,
                                   nx, ny, vmax_all, rmax_all, walls, wall_start, wall_items, wox, woy, wc, wnx, wny,
                                   dt, ln, cand, best_d, best_j, proj)
             changed[i] = vx != vel_in[i, 0] or vy != vel_in[i, 1]

@@ -333,7 +333,7 @@ class World:
         guarded = np.zeros(n, np.bool_)
         if p.strict:
             safe_vel = np.empty((n, 2))
-            contact_guard_phase(pos, a["ids"], a["radius"], max_speed, new_vel, start, items, *self._hash.args,
+            contact_guard_phase(pos, a["ids"], a["radius"], max_speed, new_vel, nbr, nbr_count, p.sense_radius, start, items, *self._hash.args,
                                 c.segments, c.wall_start, c.wall_items, *wg.args, dt, safe_vel, guarded)
             new_vel = safe_vel
         out_pos = np.empty((n, 2))

@@ -1,0 +1,71 @@
+"""Contact guard: whatever velocities come in, no pair overlaps and no agent nears a wall after the move."""
+import numpy as np
+from hypothesis import given, settings, strategies as st
+
+from crowdcore.guard import contact_guard_phase
+from crowdcore.spatial import HashGrid, build_hash, build_wall_grid, knn_phase, point_segment_distance
+
+WALLS = np.array([[0, 0, 8, 0], [8, 0, 8, 8], [8, 8, 0, 8], [0, 8, 0, 0], [3, 3, 5, 4.5]], float)
+
+
+def _setup(seed, n, k):
+    rng = np.random.default_rng(seed)
+    pos = []
+    radius = rng.uniform(0.15, 0.3, 4 * n)
+    for p, r in zip(rng.uniform(0.4, 7.6, (4 * n, 2)), radius):
+        if all(np.hypot(*(p - q)) >= r + rq + 1e-3 for q, rq in pos) and \
+                all(point_segment_distance(p[0], p[1], *w)[0] > r + 1e-3 for w in WALLS):
+            pos.append((p, r))
+        if len(pos) == n:
+            break
+    P = np.array([p for p, _ in pos])
+    R = np.array([r for _, r in pos])
+    m = len(P)
+    ids = rng.permutation(np.arange(1, m + 1)).astype(np.int32)
+    vmax = rng.uniform(0.8, 2.2, m)
+    v = rng.normal(0, 1.5, (m, 2))                  # adversarial velocities, often straight into others
+    g = HashGrid.covering(-1, -1, 9, 9, 2.5)
+    start = np.zeros(g.nx * g.ny + 1, np.int32)
+    items = np.zeros(m, np.int32)
+    build_hash(P, *g.args, start, items)
+    nbr = np.zeros((m, k), np.int32)
+    cnt = np.zeros(m, np.int32)
+    knn_phase(P, ids, start, items, *g.args, 2.5, nbr, cnt)
+    wg = HashGrid.covering(-1, -1, 9, 9, 2.0)
+    ws, wi = build_wall_grid(WALLS, wg, 0.0)
+    return P, R, ids, vmax, v, g, start, items, nbr, cnt, wg, ws, wi
+
+
+def _guard(P, R, ids, vmax, v, g, start, items, nbr, cnt, wg, ws, wi, dt):
+    out = np.empty_like(v)
+    changed = np.zeros(len(P), np.bool_)
+    contact_guard_phase(P, ids, R, vmax, v, nbr, cnt, 2.5, start, items, *g.args, WALLS, ws, wi, *wg.args, dt, out, changed)
+    return out, changed
+
+
+@settings(max_examples=60, deadline=None, derandomize=True)
+@given(st.integers(0, 10**6), st.integers(2, 60), st.sampled_from([0.05, 0.1, 0.25]), st.sampled_from([0, 4, 10]))
+def test_no_overlap_and_no_wall_contact_after_guard(seed, n, dt, k):
+    P, R, ids, vmax, v, g, start, items, nbr, cnt, wg, ws, wi = _setup(seed, n, k)
+    out, changed = _guard(P, R, ids, vmax, v, g, start, items, nbr, cnt, wg, ws, wi, dt)
+    speed = np.hypot(out[:, 0], out[:, 1])
+    assert (speed <= vmax * (1 + 1e-9) + 1e-12).all()
+    new = P + out * dt
+    for i in range(len(P)):
+        for j in range(i + 1, len(P)):
+            assert np.hypot(*(new[i] - new[j])) >= (R[i] + R[j]) * (1 - 1e-9)
+        for w in WALLS:
+            assert point_segment_distance(new[i, 0], new[i, 1], *w)[0] >= R[i] * (1 - 1e-9)
+    # an allowed velocity comes back bit for bit
+    assert np.array_equal(out[~changed], v[~changed])
+
+
+@settings(max_examples=30, deadline=None, derandomize=True)
+@given(st.integers(0, 10**6), st.integers(2, 60))
+def test_neighbour_list_shortcut_equals_hash_search(seed, n):
+    # k = 0 forces the hash search; k = 30 mostly takes the shortcut through the sense list
+    a = _setup(seed, n, 0)
+    b = _setup(seed, n, 30)
+    out_a, _ = _guard(*a, 0.1)
+    out_b, _ = _guard(*b, 0.1)
+    assert np.array_equal(out_a, out_b)

@@ -83,40 +83,59 @@ def _insert_sorted(best_d, best_j, count, k, d, j, ids):
     return count + 1
 
 
+_BLOCK = 64  # agents per parallel work item; scratch buffers are allocated once per block
+
+
 @parallel_kernel
 def knn_phase(pos, ids, cell_start, cell_items, ox, oy, cell, nx, ny, radius, nbr, nbr_count):
     """For every agent, up to K = nbr.shape[1] nearest other agents within `radius`.
 
-    Writes nbr[i, :nbr_count[i]] as row indices sorted by (squared distance, id).
-    """
+    Writes nbr[i, :nbr_count[i]] as row indices sorted by (squared distance, id). The top-K
+    insertion is written out inline: calling a helper with array arguments costs atomic
+    reference counting per call, which dominated this loop."""
     n = pos.shape[0]
     k = nbr.shape[1]
     r2 = radius * radius
     reach = int(np.ceil(radius / cell))
-    for i in prange(n):
-        best_d = np.empty(max(k, 1), np.float64)
-        best_j = np.empty(max(k, 1), np.int32)
-        count = 0
-        x, y = pos[i, 0], pos[i, 1]
-        cx, cy = _cell_of(x, y, ox, oy, cell, nx, ny)
-        if k > 0:
+    nblocks = (n + _BLOCK - 1) // _BLOCK
+    for b in prange(nblocks):
+        best_d = np.empty(k + 1, np.float64)
+        best_j = np.empty(k + 1, np.int32)
+        for i in range(b * _BLOCK, min((b + 1) * _BLOCK, n)):
+            count = 0
+            x, y = pos[i, 0], pos[i, 1]
+            cx, cy = _cell_of(x, y, ox, oy, cell, nx, ny)
             for gy in range(max(cy - reach, 0), min(cy + reach, ny - 1) + 1):
                 for gx in range(max(cx - reach, 0), min(cx + reach, nx - 1) + 1):
                     c = gy * nx + gx
                     for s in range(cell_start[c], cell_start[c + 1]):
                         j = cell_items[s]
-                        if j == i:
+                        if j == i or k == 0:
                             continue
                         dx = pos[j, 0] - x
                         dy = pos[j, 1] - y
                         d = dx * dx + dy * dy
-                        if d <= r2:
-                            count = _insert_sorted(best_d, best_j, count, k, d, j, ids)
-        for s in range(count):
-            nbr[i, s] = best_j[s]
-        for s in range(count, k):
-            nbr[i, s] = -1
-        nbr_count[i] = count
+                        if d > r2:
+                            continue
+                        idj = ids[j]
+                        if count == k:
+                            last = best_j[k - 1]
+                            if d > best_d[k - 1] or (d == best_d[k - 1] and idj >= ids[last]):
+                                continue
+                            count -= 1
+                        p = count
+                        while p > 0 and (best_d[p - 1] > d or (best_d[p - 1] == d and ids[best_j[p - 1]] > idj)):
+                            best_d[p] = best_d[p - 1]
+                            best_j[p] = best_j[p - 1]
+                            p -= 1
+                        best_d[p] = d
+                        best_j[p] = j
+                        count += 1
+            for s in range(count):
+                nbr[i, s] = best_j[s]
+            for s in range(count, k):
+                nbr[i, s] = -1
+            nbr_count[i] = count
 
 
 @kernel

@@ -1,0 +1,262 @@
+/* C side of the crowdcore C ABI: the interpreter boot and the exported wrappers.
+ *
+ * The build script (build_cabi.py) prepends the baked configuration (CC__BAKED_* macros) and the
+ * static prototypes of the extern "Python" bridge functions, and cffi pastes this file after its
+ * own embedding support code, so cffi_start_python() and Python.h are in scope here.
+ *
+ * Why a boot function: cffi's own start-up calls Py_InitializeEx() with the default configuration,
+ * which takes its module path from the base interpreter and imports _cffi_backend from there before
+ * any init code of ours can run; a base interpreter whose cffi/numpy differ from the project's
+ * environment then breaks at first use. So we start the interpreter ourselves, with home, executable,
+ * prefixes and module path baked in at build time, and only then let cffi attach to it.
+ */
+#include <pthread.h>
+#include <stdio.h>
+#include <string.h>
+#include "crowdcore.h"
+
+#define CC_EXPORT __attribute__((visibility("default")))
+#define CC__ERR_SIZE 4096
+
+static __thread char cc__err[CC__ERR_SIZE];      /* this thread's last failure text */
+static char cc__init_error[CC__ERR_SIZE];        /* why start-up failed (shared by all threads) */
+static int cc__init_failed = -1;                 /* set by the init code: 0 ok, 1 failed; -1 never reported */
+static int cc__state = 0;                        /* 0 not started, 1 ready, -1 failed for good */
+static pthread_mutex_t cc__boot_lock = PTHREAD_MUTEX_INITIALIZER;
+
+/* Called from Python (crowdcore/cabi.py) to set this thread's error text. */
+static void cc__set_error(const char *text)
+{
+    snprintf(cc__err, CC__ERR_SIZE, "%s", text ? text : "");
+}
+
+/* Called once by the embedded init code (cabi_init.py) with its outcome. */
+static void cc__init_report(int32_t failed, const char *text)
+{
+    cc__init_failed = failed ? 1 : 0;
+    snprintf(cc__init_error, CC__ERR_SIZE, "%s", text ? text : "");
+}
+
+static int cc__start_interpreter(void)
+{
+    static const char *paths[] = CC__BAKED_PATHS;
+    PyStatus st;
+    PyConfig c;
+    size_t i;
+    PyConfig_InitPythonConfig(&c);
+    c.install_signal_handlers = 0;   /* signals belong to the host */
+    c.parse_argv = 0;
+    c.site_import = 0;               /* no base site-packages; the init code adds the project's site dirs */
+    c.user_site_directory = 0;
+    c.module_search_paths_set = 1;
+#define CC__SET(field, value) \
+    st = PyConfig_SetBytesString(&c, &c.field, value); \
+    if (PyStatus_Exception(st)) goto fail;
+    CC__SET(program_name, CC__BAKED_EXECUTABLE)
+    CC__SET(executable, CC__BAKED_EXECUTABLE)
+    CC__SET(base_executable, CC__BAKED_BASE_EXECUTABLE)
+    CC__SET(home, CC__BAKED_HOME)
+    CC__SET(prefix, CC__BAKED_PREFIX)
+    CC__SET(exec_prefix, CC__BAKED_EXEC_PREFIX)
+    CC__SET(base_prefix, CC__BAKED_HOME)
+    CC__SET(base_exec_prefix, CC__BAKED_BASE_EXEC_PREFIX)
+#undef CC__SET
+    for (i = 0; i < sizeof(paths) / sizeof(paths[0]); i++) {
+        wchar_t *w = Py_DecodeLocale(paths[i], NULL);
+        if (w == NULL) {
+            snprintf(cc__init_error, CC__ERR_SIZE, "crowdcore: cannot decode baked path %s", paths[i]);
+            PyConfig_Clear(&c);
+            return -1;
+        }
+        st = PyWideStringList_Append(&c.module_search_paths, w);
+        PyMem_RawFree(w);
+        if (PyStatus_Exception(st))
+            goto fail;
+    }
+    st = Py_InitializeFromConfig(&c);
+    if (PyStatus_Exception(st))
+        goto fail;
+    PyConfig_Clear(&c);
+    PyEval_SaveThread();             /* release the GIL; cffi and each call take it as needed */
+    return 0;
+fail:
+    snprintf(cc__init_error, CC__ERR_SIZE,
+             "crowdcore: the embedded Python (home %s) failed to start: %s%s%s", CC__BAKED_HOME,
+             st.func ? st.func : "", st.func ? ": " : "", st.err_msg ? st.err_msg : "unknown error");
+    PyConfig_Clear(&c);
+    return -1;
+}
+
+static int cc__boot(void)
+{
+    int state;
+    pthread_mutex_lock(&cc__boot_lock);
+    if (cc__state == 0) {
+        if (!Py_IsInitialized() && cc__start_interpreter() != 0) {
+            cc__state = -1;
+        } else if (cffi_start_python() != 0) {
+            if (!cc__init_error[0])
+                snprintf(cc__init_error, CC__ERR_SIZE,
+                         "crowdcore: the embedded runtime could not be set up (cffi printed details on stderr)");
+            cc__state = -1;
+        } else if (cc__init_failed != 0) {
+            if (!cc__init_error[0])
+                snprintf(cc__init_error, CC__ERR_SIZE, "crowdcore: the embedded init code did not complete");
+            cc__state = -1;
+        } else {
+            __atomic_store_n(&cc__state, 1, __ATOMIC_RELEASE);
+        }
+    }
+    state = cc__state;
+    pthread_mutex_unlock(&cc__boot_lock);
+    if (state != 1) {
+        snprintf(cc__err, CC__ERR_SIZE, "%s", cc__init_error);
+        return -1;
+    }
+    return 0;
+}
+
+/* Every exported call that needs the runtime: clear this thread's error, start once, then go. */
+#define CC_ENTER() do { \
+    cc__err[0] = 0; \
+    if (__atomic_load_n(&cc__state, __ATOMIC_ACQUIRE) != 1 && cc__boot() != 0) return CC_ERR_INIT; \
+} while (0)
+
+/* ------------------------------------------------------------------ pure C calls */
+CC_EXPORT int32_t cc_version(int32_t *major, int32_t *minor, int32_t *patch)
+{
+    if (major) *major = CC_ABI_VERSION_MAJOR;
+    if (minor) *minor = CC_ABI_VERSION_MINOR;
+    if (patch) *patch = CC_ABI_VERSION_PATCH;
+    return CC_OK;
+}
+
+CC_EXPORT int32_t cc_status_name(int32_t status, const char **name)
+{
+    static const char *names[] = {
+        "CC_OK", "CC_ERR_HANDLE", "CC_ERR_NULL", "CC_ERR_NOT_FINITE", "CC_ERR_RANGE", "CC_ERR_CAPACITY",
+        "CC_ERR_UNKNOWN_ID", "CC_ERR_INVALID", "CC_ERR_SCENARIO", "CC_ERR_SNAPSHOT", "CC_ERR_IO",
+        "CC_ERR_BUSY", "CC_ERR_INIT", "CC_ERR_INTERNAL",
+    };
+    if (name == NULL)
+        return CC_ERR_NULL;
+    if (status < 0 || status >= (int32_t)(sizeof(names) / sizeof(names[0])))
+        return CC_ERR_RANGE;
+    *name = names[status];
+    return CC_OK;
+}
+
+CC_EXPORT int32_t cc_last_error(char *buf, int32_t capacity, int32_t *length)
+{
+    size_t n = strlen(cc__err);
+    if (length)
+        *length = (int32_t)n;
+    if (buf == NULL)
+        return length ? CC_OK : CC_ERR_NULL;
+    if (capacity <= 0)
+        return CC_ERR_CAPACITY;
+    if (n >= (size_t)capacity) {
+        memcpy(buf, cc__err, (size_t)capacity - 1);
+        buf[capacity - 1] = 0;
+        return CC_ERR_CAPACITY;
+    }
+    memcpy(buf, cc__err, n + 1);
+    return CC_OK;
+}
+
+CC_EXPORT int32_t cc_init(void)
+{
+    CC_ENTER();
+    return CC_OK;
+}
+
+/* ------------------------------------------------------------------ bridged calls */
+CC_EXPORT int32_t cc_default_world_def(cc_world_def *def)
+{ CC_ENTER(); return cc__py_default_world_def(def); }
+
+CC_EXPORT int32_t cc_default_agent_def(cc_agent_def *def)
+{ CC_ENTER(); return cc__py_default_agent_def(def); }
+
+CC_EXPORT int32_t cc_world_create(const cc_world_def *def, cc_world *out)
+{ CC_ENTER(); return cc__py_world_create(def, out); }
+
+CC_EXPORT int32_t cc_world_create_from_scenario_file(const char *path, cc_world *out)
+{ CC_ENTER(); return cc__py_world_create_from_scenario_file(path, out); }
+
+CC_EXPORT int32_t cc_world_create_from_scenario_text(const char *toml_text, cc_world *out)
+{ CC_ENTER(); return cc__py_world_create_from_scenario_text(toml_text, out); }
+
+CC_EXPORT int32_t cc_world_create_from_snapshot(const void *data, int64_t size, cc_world *out)
+{ CC_ENTER(); return cc__py_world_create_from_snapshot(data, size, out); }
+
+CC_EXPORT int32_t cc_world_create_from_file(const char *path, cc_world *out)
+{ CC_ENTER(); return cc__py_world_create_from_file(path, out); }
+
+CC_EXPORT int32_t cc_world_destroy(cc_world w)
+{ CC_ENTER(); return cc__py_world_destroy(w); }
+
+CC_EXPORT int32_t cc_world_is_valid(cc_world w)
+{ CC_ENTER(); return cc__py_world_is_valid(w); }
+
+CC_EXPORT int32_t cc_world_add_wall(cc_world w, const double *xy, int32_t point_count, int32_t closed)
+{ CC_ENTER(); return cc__py_world_add_wall(w, xy, point_count, closed); }
+
+CC_EXPORT int32_t cc_world_add_obstacle(cc_world w, const double *xy, int32_t point_count)
+{ CC_ENTER(); return cc__py_world_add_obstacle(w, xy, point_count); }
+
+CC_EXPORT int32_t cc_world_add_target_circle(cc_world w, const char *name, double cx, double cy, double r,
+                                             int32_t *out_index)
+{ CC_ENTER(); return cc__py_world_add_target_circle(w, name, cx, cy, r, out_index); }
+
+CC_EXPORT int32_t cc_world_add_target_rect(cc_world w, const char *name, double xmin, double ymin, double xmax,
+                                           double ymax, int32_t *out_index)
+{ CC_ENTER(); return cc__py_world_add_target_rect(w, name, xmin, ymin, xmax, ymax, out_index); }
+
+CC_EXPORT int32_t cc_world_set_bounds(cc_world w, double xmin, double ymin, double xmax, double ymax)
+{ CC_ENTER(); return cc__py_world_set_bounds(w, xmin, ymin, xmax, ymax); }
+
+CC_EXPORT int32_t cc_world_add_agents(cc_world w, const cc_agent_def *defs, int32_t count, int32_t *out_ids)
+{ CC_ENTER(); return cc__py_world_add_agents(w, defs, count, out_ids); }
+
+CC_EXPORT int32_t cc_world_remove_agents(cc_world w, const int32_t *ids, int32_t count)
+{ CC_ENTER(); return cc__py_world_remove_agents(w, ids, count); }
+
+CC_EXPORT int32_t cc_world_set_agent_target(cc_world w, int32_t id, int32_t target)
+{ CC_ENTER(); return cc__py_world_set_agent_target(w, id, target); }
+
+CC_EXPORT int32_t cc_world_step(cc_world w, double dt)
+{ CC_ENTER(); return cc__py_world_step(w, dt); }
+
+CC_EXPORT int32_t cc_world_get_step_stats(cc_world w, cc_step_stats *out)
+{ CC_ENTER(); return cc__py_world_get_step_stats(w, out); }
+
+CC_EXPORT int32_t cc_world_get_info(cc_world w, cc_world_info *out)
+{ CC_ENTER(); return cc__py_world_get_info(w, out); }
+
+CC_EXPORT int32_t cc_world_get_positions(cc_world w, double *xy, int32_t capacity, int32_t *count)
+{ CC_ENTER(); return cc__py_world_get_positions(w, xy, capacity, count); }
+
+CC_EXPORT int32_t cc_world_get_velocities(cc_world w, double *vxy, int32_t capacity, int32_t *count)
+{ CC_ENTER(); return cc__py_world_get_velocities(w, vxy, capacity, count); }
+
+CC_EXPORT int32_t cc_world_get_ids(cc_world w, int32_t *ids, int32_t capacity, int32_t *count)
+{ CC_ENTER(); return cc__py_world_get_ids(w, ids, capacity, count); }
+
+CC_EXPORT int32_t cc_world_get_neighbours(cc_world w, double x, double y, double radius, int32_t *ids,
+                                          int32_t capacity, int32_t *count)
+{ CC_ENTER(); return cc__py_world_get_neighbours(w, x, y, radius, ids, capacity, count); }
+
+CC_EXPORT int32_t cc_world_state_hash(cc_world w, char *buf, int32_t capacity)
+{ CC_ENTER(); return cc__py_world_state_hash(w, buf, capacity); }
+
+CC_EXPORT int32_t cc_world_save_snapshot(cc_world w, void *buf, int64_t capacity, int64_t *size)
+{ CC_ENTER(); return cc__py_world_save_snapshot(w, buf, capacity, size); }
+
+CC_EXPORT int32_t cc_world_load_snapshot(cc_world w, const void *data, int64_t size)
+{ CC_ENTER(); return cc__py_world_load_snapshot(w, data, size); }
+
+CC_EXPORT int32_t cc_world_save_file(cc_world w, const char *path)
+{ CC_ENTER(); return cc__py_world_save_file(w, path); }
+
+CC_EXPORT int32_t cc_world_load_file(cc_world w, const char *path)
+{ CC_ENTER(); return cc__py_world_load_file(w, path); }

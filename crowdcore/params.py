@@ -18,6 +18,11 @@ DEFAULT_WEIGHTS = {
 }
 
 
+def _default_coeffs():
+    from .governor import DEFAULT_COEFFS
+    return DEFAULT_COEFFS
+
+
 @dataclass
 class Params:
     """Everything that shapes a step, apart from scene and agents. Units: metres, seconds."""
@@ -36,6 +41,8 @@ class Params:
     orca_tau: float = 2.0                 # ORCA horizon for other agents (common practice)
     orca_tau_walls: float = 0.5           # ORCA horizon for walls (common practice)
     max_dt: float = 1.0                   # larger steps are refused
+    budget_ms: float = 0.0                # > 0: the governor picks search width and K per frame to fit this
+    budget_coeffs: list = field(default_factory=lambda: list(_default_coeffs()))  # the governor's cost model
 
     def __post_init__(self):
         self.validate()
@@ -60,6 +67,11 @@ class Params:
             v = getattr(self, key)
             if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= hi:
                 bad(key, f"must be an integer in 0..{hi}, got {v!r}")
+        if isinstance(self.budget_ms, bool) or not isinstance(self.budget_ms, (int, float)) \
+                or not math.isfinite(self.budget_ms) or self.budget_ms < 0:
+            bad("budget_ms", f"must be a number >= 0 (0 = no governor), got {self.budget_ms!r}")
+        from .governor import check_coeffs
+        self.budget_coeffs = list(check_coeffs(self.budget_coeffs, f"{where}.budget_coeffs"))
         if not isinstance(self.strict, bool):
             bad("strict", f"must be true or false, got {self.strict!r}")
         if not isinstance(self.weights, dict):

@@ -12,6 +12,7 @@ import numpy as np
 from . import phases
 from .choose import RecordIndex, choose_full, choose_pruned
 from .errors import ScenarioError, StepError
+from .governor import plan
 from .guard import contact_guard_phase
 from .orca import orca_phase
 from .params import Params
@@ -292,7 +293,9 @@ class World:
         start, items = self._index_agents(pos)
         t1 = t(); ms["index"] = t1 - t0
 
-        k = p.neighbours
+        z, k = p.search_width, p.neighbours
+        if p.budget_ms > 0:  # a pure function of n and stored numbers: replays make the same choice
+            z, k = plan(n, p.budget_ms, p.budget_coeffs, z_max=z, k_min=min(4, k), k_max=k)
         nbr = np.empty((n, k), np.int32)
         nbr_count = np.empty(n, np.int32)
         knn_phase(pos, a["ids"], start, items, *self._hash.args, p.sense_radius, nbr, nbr_count)
@@ -326,7 +329,7 @@ class World:
         new_vel = np.empty((n, 2))
         rec = np.empty(n, np.int32)
         chooser = choose_pruned if p.search == "pruned" else choose_full
-        self._index.run(chooser, p.weight_vector(), p.search_width, p.strict, vel, pref_vel, nav_dir, v_safe,
+        self._index.run(chooser, p.weight_vector(), z, p.strict, vel, pref_vel, nav_dir, v_safe,
                         v_group, max_speed, lines, line_count, new_vel, rec)
         t5 = t(); ms["choose"] = t5 - t4
 
@@ -365,6 +368,8 @@ class World:
             "arrived": int(arrived.sum()),
             "fallbacks": int((rec < 0).sum()),
             "guarded": int(guarded.sum()),
+            "search_width": z,
+            "neighbours": k,
         }
         ms["account"] = t() - t6
         self.phase_ms = {k: v * 1e3 for k, v in ms.items()}

@@ -54,6 +54,20 @@ def _finite_array(name, value, shape_tail, n=None):
     return np.ascontiguousarray(arr)
 
 
+_INDEX_CACHE = {}
+
+
+def _record_index(records):
+    """The search index of a record set, built once per content hash (it is read-only)."""
+    key = records.content_hash
+    index = _INDEX_CACHE.get(key)
+    if index is None:
+        if len(_INDEX_CACHE) >= 4:
+            _INDEX_CACHE.pop(next(iter(_INDEX_CACHE)))
+        index = _INDEX_CACHE[key] = RecordIndex.build(records)
+    return index
+
+
 class World:
     """A crowd: scene + agents + parameters + frame counter. Use one thread per world at a time."""
 
@@ -71,7 +85,7 @@ class World:
         self.last_arrived = np.zeros(0, np.int32)
         self.phase_ms = dict.fromkeys(PHASES, 0.0)
         self.stats = {}
-        self._index = RecordIndex.build(self.records)
+        self._index = _record_index(self.records)
         self._extra_bounds = None
         self._journal = None        # a Recorder attaches here to log host commands
         self.name = ""
@@ -395,10 +409,19 @@ class World:
         return dumps(self, embed_records)
 
     @classmethod
-    def from_snapshot(cls, data, records=None):
-        """A new world from snapshot bytes; raises a SnapshotError kind on any defect."""
+    def from_snapshot(cls, data, records=None, like=None):
+        """A new world from snapshot bytes; raises a SnapshotError kind on any defect.
+
+        like: a world whose scene, parameters and records may equal the snapshot's; then the new
+        world shares its read-only derived data (navigation fields, grids) instead of rebuilding them."""
         from .snapshot import loads
-        return loads(data, records)
+        return loads(data, records, like=like)
+
+    def restore(self, data, records=None):
+        """Replace this world's state with a snapshot's, after validating all of it (on error nothing
+        changes). Fast when the snapshot's scene and parameters equal this world's."""
+        from .snapshot import restore
+        return restore(self, data, records)
 
     def save(self, path, embed_records=None):
         """Write a snapshot file atomically (the old file survives a failed write)."""
@@ -406,9 +429,10 @@ class World:
         atomic_write(path, self.snapshot(embed_records))
 
     @classmethod
-    def load(cls, path, records=None):
+    def load(cls, path, records=None, like=None):
+        """A new world from a snapshot file (see from_snapshot)."""
         from .snapshot import read_file
-        return cls.from_snapshot(read_file(path), records)
+        return cls.from_snapshot(read_file(path), records, like=like)
 
     def state_hash(self):
         """Hash of the evolving state; equal hashes mean bit-identical agents, frame and time."""

@@ -12,6 +12,16 @@ c = (w0*v_now + w2*v_pref + w4*v_safe + w5*v_group)/W. In the agent's heading fr
 q_r = b_r*(cos phi_r, sin phi_r), which does not depend on the agent, so the quadratic part is a
 nearest-point query among fixed points q_r around c' = rotate(c, -theta). Tree nodes also bound the
 entry speed a (consistency term) and the turn angle phi (direction term).
+
+Strict mode also prunes by feasibility: the agent's half-planes, rotated into the heading frame and
+relaxed by 1e-9 of their scale, are clipped against the searched buckets' q box and the speed limit
+into a convex outline of where eligible records can lie. An empty outline ends the search at once;
+otherwise a node is skipped when its q box misses the outline's box or lies wholly beyond one line,
+and a record is skipped before any trigonometry when it lies beyond one. The relaxation is ~1e7
+times the rounding between these tests and `_allowed`, which still decides every record taken.
+
+Each bucket's tree holds one copy of records with bitwise-identical (a, b, phi): a later copy has
+the same energy and velocity, so the full scan (first strictly smaller energy wins) never picks it.
 """
 import math
 
@@ -27,6 +37,8 @@ __all__ = ["energy", "choose_full", "choose_pruned",
 HEADING_EPS = 1e-9      # |v_now| above this defines the heading (contract)
 LINE_EPS = 1e-9         # half-plane violation tolerance in strict mode (contract)
 _MARGIN_REL = 1e-9      # prune only when a bound beats the best by this fraction of the energy scale
+_FEAS_REL = 1e-9        # strict-mode feasibility tests are relaxed by this fraction of each line's scale
+_BIG = 1.7976931348623157e308  # largest float64: energy bounds are capped here, inf means infeasible
 _STACK = 64             # DFS stack entries; tree depth is at most 31
 _NODE_COLS = 13         # qx_lo qx_hi qy_lo qy_hi a_lo a_hi phi_lo phi_hi cos/sin(phi_lo) cos/sin(phi_hi) b_lo
 
@@ -206,9 +218,10 @@ def choose_full(a, b, phi, bucket_start, bucket_min_a, weights, z, strict, v_now
 # Index: one implicit, balanced k-d tree over q_r per bucket
 
 @kernel
-def _build_trees(a, b, phi, bucket_start, leaf_size):
+def _build_trees(a, b, phi, bucket_start, items, item_start, leaf_size):
     """Returns (perm, bucket_node_start, node_range, node_box).
 
+    Bucket k indexes the records items[item_start[k]:item_start[k+1]] (ascending record indices).
     perm: tree order -> record index. Bucket k owns nodes bucket_node_start[k]..[k+1]; local node j
     has children 2j+1, 2j+2 and is a leaf when 2j+1 is past the end. Nodes split their range at the
     middle along the wider q axis, so all leaves of a bucket sit at one depth with <= leaf_size records.
@@ -222,7 +235,7 @@ def _build_trees(a, b, phi, bucket_start, leaf_size):
         qy[r] = b[r] * math.sin(phi[r])
     bucket_node_start = np.zeros(nb + 1, np.int32)
     for k in range(nb):
-        m = bucket_start[k + 1] - bucket_start[k]
+        m = item_start[k + 1] - item_start[k]
         nodes = 0
         if m > 0:
             depth = 0
@@ -233,14 +246,14 @@ def _build_trees(a, b, phi, bucket_start, leaf_size):
     total = bucket_node_start[nb]
     node_range = np.zeros((total, 2), np.int32)
     node_box = np.zeros((total, _NODE_COLS))
-    perm = np.arange(n).astype(np.int32)
+    perm = items.copy()
     for k in range(nb):
         base = bucket_node_start[k]
         nodes = bucket_node_start[k + 1] - base
         if nodes == 0:
             continue
-        node_range[base, 0] = bucket_start[k]
-        node_range[base, 1] = bucket_start[k + 1]
+        node_range[base, 0] = item_start[k]
+        node_range[base, 1] = item_start[k + 1]
         for j in range(nodes):  # index order is breadth-first: parents before children
             lo = node_range[base + j, 0]
             hi = node_range[base + j, 1]
@@ -290,11 +303,147 @@ def _build_trees(a, b, phi, bucket_start, leaf_size):
 
 
 @kernel
-def _node_bound(box, m, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb, vmax):
-    # Lower bound of the energy of every record in node m (inf if none can be eligible).
+def _clip(px, py, n, hx, hy, h0, ox, oy):
+    # Sutherland-Hodgman: keep the part of polygon (px, py)[:n] where h0 + hx*x + hy*y <= 0.
+    if n == 0:
+        return 0
+    m = 0
+    jx = px[n - 1]
+    jy = py[n - 1]
+    fj = h0 + hx * jx + hy * jy
+    for k in range(n):
+        kx = px[k]
+        ky = py[k]
+        fk = h0 + hx * kx + hy * ky
+        if (fk <= 0.0) != (fj <= 0.0):
+            t = fj / (fj - fk)  # opposite sides: no cancellation, |t| <= 1
+            ox[m] = jx + t * (kx - jx)
+            oy[m] = jy + t * (ky - jy)
+            m += 1
+        if fk <= 0.0:
+            ox[m] = kx
+            oy[m] = ky
+            m += 1
+        jx = kx
+        jy = ky
+        fj = fk
+    return m
+
+
+@kernel
+def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start, k0, k1, fl, fb):
+    """Strict mode: a conservative outline, in the heading frame q = R(-theta) u, of where eligible
+    records can lie. Returns the number of half-planes written to fl (rows hx, hy, h0: a record is
+    surely ineligible when h0 + hx*qx + hy*qy > 0) and fills fb with a q box (x0, x1, y0, y1) holding
+    every eligible record of buckets k0..k1; returns -1 when no record there can be eligible.
+
+    Each half-plane is relaxed by 1e-9 of its own scale, about 1e7 times the rounding that separates
+    these tests from `_allowed`, so they never reject a record `_allowed` accepts.
+    """
+    fb[0] = -np.inf
+    fb[1] = np.inf
+    fb[2] = -np.inf
+    fb[3] = np.inf
+    if not strict or nl == 0:
+        return 0
+    # Half-planes in the heading frame: det(d, p - u) = c0 + hx*qx + hy*qy with u = R(theta) q.
+    nf = 0
+    for j in range(nl):
+        px = lines[i, j, 0]
+        py = lines[i, j, 1]
+        ldx = lines[i, j, 2]
+        ldy = lines[i, j, 3]
+        hx = ldy * ct - ldx * st
+        hy = -(ldx * ct + ldy * st)
+        c0 = ldx * py - ldy * px
+        scale = (abs(ldx) + abs(ldy)) * (abs(px) + abs(py) + 2.0 * b_max)
+        h0 = c0 - (LINE_EPS + _FEAS_REL * scale)
+        if math.isfinite(hx) and math.isfinite(hy) and math.isfinite(h0) and math.isfinite(scale):
+            fl[nf, 0] = hx
+            fl[nf, 1] = hy
+            fl[nf, 2] = h0
+            nf += 1
+    # Start from the q box of the searched buckets' roots, cut to the speed limit.
+    x0 = np.inf
+    x1 = -np.inf
+    y0 = np.inf
+    y1 = -np.inf
+    for k in range(k0, k1 + 1):
+        if bucket_node_start[k + 1] > bucket_node_start[k]:
+            m = bucket_node_start[k]
+            x0 = min(x0, node_box[m, 0])
+            x1 = max(x1, node_box[m, 1])
+            y0 = min(y0, node_box[m, 2])
+            y1 = max(y1, node_box[m, 3])
+    rad = b_max
+    if vmax < rad:
+        rad = vmax
+    rad *= 1.0 + _FEAS_REL  # |q| <= b(1 + few ulps) for every record with b <= rad
+    x0 = max(x0, -rad)
+    x1 = min(x1, rad)
+    y0 = max(y0, -rad)
+    y1 = min(y1, rad)
+    if not (x0 <= x1 and y0 <= y1):
+        return -1
+    cap = 4 * (8 + nf)
+    poly = np.empty((4, cap))
+    poly[0, 0] = x0
+    poly[1, 0] = y0
+    poly[0, 1] = x1
+    poly[1, 1] = y0
+    poly[0, 2] = x1
+    poly[1, 2] = y1
+    poly[0, 3] = x0
+    poly[1, 3] = y1
+    cnt = 4
+    src = 0
+    rd = rad * math.sqrt(2.0) * (1.0 + _FEAS_REL)  # |qx| + |qy| <= sqrt(2) |q|
+    for j in range(4 + nf):
+        if 2 * cnt > cap:  # only rounding could grow it this much; stopping early stays conservative
+            break
+        if j < 4:
+            hx = 1.0 if j % 2 == 0 else -1.0
+            hy = 1.0 if j < 2 else -1.0
+            h0 = -rd
+        else:
+            hx = fl[j - 4, 0]
+            hy = fl[j - 4, 1]
+            h0 = fl[j - 4, 2]
+        cnt = _clip(poly[2 * src], poly[2 * src + 1], cnt, hx, hy, h0, poly[2 - 2 * src], poly[3 - 2 * src])
+        src = 1 - src
+        if cnt == 0:
+            return -1
+    x0 = np.inf
+    x1 = -np.inf
+    y0 = np.inf
+    y1 = -np.inf
+    for t in range(cnt):
+        x0 = min(x0, poly[2 * src, t])
+        x1 = max(x1, poly[2 * src, t])
+        y0 = min(y0, poly[2 * src + 1, t])
+        y1 = max(y1, poly[2 * src + 1, t])
+    pad = _FEAS_REL * rad
+    fb[0] = x0 - pad
+    fb[1] = x1 + pad
+    fb[2] = y0 - pad
+    fb[3] = y1 + pad
+    return nf
+
+
+@kernel
+def _node_bound(box, m, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb, vmax, fl, nf, fb):
+    # Lower bound of the energy of every record in node m; inf exactly when no record in the node can
+    # be eligible (speed limit, or the box lies outside the feasible region of `_feasible_region`).
     # Takes the whole table and a row: a row view would cost an atomic refcount per call.
     if box[m, 12] > vmax:
         return np.inf
+    if box[m, 1] < fb[0] or box[m, 0] > fb[1] or box[m, 3] < fb[2] or box[m, 2] > fb[3]:
+        return np.inf
+    for j in range(nf):
+        hx = fl[j, 0]
+        hy = fl[j, 1]
+        if fl[j, 2] + min(hx * box[m, 0], hx * box[m, 1]) + min(hy * box[m, 2], hy * box[m, 3]) > 0.0:
+            return np.inf
     ddx = max(box[m, 0] - cx, 0.0, cx - box[m, 1])
     ddy = max(box[m, 2] - cy, 0.0, cy - box[m, 3])
     lb = W * (ddx * ddx + ddy * ddy) + C0
@@ -304,6 +453,9 @@ def _node_bound(box, m, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb, vmax):
         c_lo = box[m, 8] * cb + box[m, 9] * sb
         c_hi = box[m, 10] * cb + box[m, 11] * sb
         lb += w3 * (1.0 - max(c_lo, c_hi))
+    # An overflowing bound must not read as "infeasible": the largest finite value is still a bound.
+    if lb > _BIG:
+        lb = _BIG
     return lb
 
 
@@ -360,6 +512,14 @@ def _search_agent(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_nod
                              vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
         return best_r, theta, r1 - r0, 0
 
+    # Where eligible records can lie (strict mode); nothing to search when nowhere.
+    fl = np.empty((max(nl, 1), 3))
+    fb = np.empty(4)
+    nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start, k0, k1,
+                          fl, fb)
+    if nf < 0:
+        return -1, theta, 0, 0
+
     # Buckets best-first by the bound of their root node.
     nk = k1 - k0 + 1
     order = np.empty(nk, np.int64)
@@ -369,7 +529,7 @@ def _search_agent(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_nod
         lb = np.inf
         if bucket_node_start[k + 1] > bucket_node_start[k]:
             lb = _node_bound(node_box, bucket_node_start[k], cx, cy, W, C0, w[1], s, w[3], use_dir,
-                             beta, cb, sb, vmax)
+                             beta, cb, sb, vmax, fl, nf, fb)
         u = t
         while u > 0 and order_lb[u - 1] > lb:
             order[u] = order[u - 1]
@@ -386,14 +546,17 @@ def _search_agent(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_nod
     stack_lb = np.empty(_STACK)
     w1 = w[1]
     w3 = w[3]
+    fx0 = fb[0]
+    fx1 = fb[1]
+    fy0 = fb[2]
+    fy1 = fb[3]
     for t in range(nk):
-        if order_lb[t] > best + margin:  # also stops at empty buckets (inf)
+        # inf: empty bucket or no eligible record (all later ones too, the order is ascending)
+        if order_lb[t] == np.inf or order_lb[t] > best + margin:
             break
         k = order[t]
         base = bucket_node_start[k]
         nodes = bucket_node_start[k + 1] - base
-        if nodes == 0:
-            continue
         stack[0] = 0
         stack_lb[0] = order_lb[t]
         sp = 1
@@ -405,34 +568,54 @@ def _search_agent(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_nod
             visits += 1
             c1 = 2 * j + 1
             if c1 < nodes:
-                lb1 = _node_bound(node_box, base + c1, cx, cy, W, C0, w1, s, w[3], use_dir, beta, cb, sb, vmax)
-                lb2 = _node_bound(node_box, base + c1 + 1, cx, cy, W, C0, w1, s, w[3], use_dir, beta, cb, sb,
-                                  vmax)
-                # Push the farther child first so the nearer one is explored first.
+                lb1 = _node_bound(node_box, base + c1, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb, vmax,
+                                  fl, nf, fb)
+                lb2 = _node_bound(node_box, base + c1 + 1, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb,
+                                  vmax, fl, nf, fb)
+                # Push the farther child first so the nearer one is explored first; drop infeasible ones.
                 if lb1 <= lb2:
-                    stack[sp] = c1 + 1
-                    stack_lb[sp] = lb2
-                    stack[sp + 1] = c1
-                    stack_lb[sp + 1] = lb1
+                    if lb2 != np.inf:
+                        stack[sp] = c1 + 1
+                        stack_lb[sp] = lb2
+                        sp += 1
+                    if lb1 != np.inf:
+                        stack[sp] = c1
+                        stack_lb[sp] = lb1
+                        sp += 1
                 else:
-                    stack[sp] = c1
-                    stack_lb[sp] = lb1
-                    stack[sp + 1] = c1 + 1
-                    stack_lb[sp + 1] = lb2
-                sp += 2
+                    if lb1 != np.inf:
+                        stack[sp] = c1
+                        stack_lb[sp] = lb1
+                        sp += 1
+                    if lb2 != np.inf:
+                        stack[sp] = c1 + 1
+                        stack_lb[sp] = lb2
+                        sp += 1
                 continue
             for p in range(node_range[base + j, 0], node_range[base + j, 1]):
                 if rec_t[p, 5] > vmax:
                     continue
                 # The energy rewritten in the heading frame, without trigonometry: equal to `energy`
                 # up to rounding (far below margin), so it only lets through near-best records.
-                ex = rec_t[p, 0] - cx
-                ey = rec_t[p, 1] - cy
+                qx = rec_t[p, 0]
+                qy = rec_t[p, 1]
+                ex = qx - cx
+                ey = qy - cy
                 da = rec_t[p, 2] - s
                 approx = W * (ex * ex + ey * ey) + C0 + w1 * (da * da)
                 if use_dir:
                     approx += w3 * (1.0 - (rec_t[p, 3] * cb + rec_t[p, 4] * sb))
                 if approx > best + margin:
+                    continue
+                # Surely ineligible (relaxed half-planes): skip before any trigonometry.
+                if qx < fx0 or qx > fx1 or qy < fy0 or qy > fy1:
+                    continue
+                out = False
+                for jj in range(nf):
+                    if fl[jj, 2] + fl[jj, 0] * qx + fl[jj, 1] * qy > 0.0:
+                        out = True
+                        break
+                if out:
                     continue
                 r = perm[p]
                 evals += 1
@@ -552,6 +735,32 @@ def _record_arrays(records):
                              "[, bucket_min_a])") from None
 
 
+def _distinct_items(a, b, phi, bucket_start):
+    """Per bucket, the records whose (a, b, phi) bits no lower-indexed record of the same bucket shares.
+
+    A later bitwise copy has the same energy and velocity as its first occurrence, so a full scan in
+    index order can never pick it; leaving copies out of the trees keeps the search exact and spares
+    it long runs of exact ties (e.g. thousands of standstill records). Returns (items, item_start).
+    """
+    n = a.shape[0]
+    nb = bucket_start.shape[0] - 1
+    if n == 0:
+        return np.zeros(0, np.int32), np.zeros(nb + 1, np.int32)
+    bucket = np.repeat(np.arange(nb), np.diff(bucket_start))
+    bits = [x.view(np.int64) for x in (a, b, phi)]
+    order = np.lexsort((np.arange(n), bits[2], bits[1], bits[0], bucket))  # last key is primary
+    same = np.zeros(n, bool)
+    same[1:] = bucket[order[1:]] == bucket[order[:-1]]
+    for x in bits:
+        same[1:] &= x[order[1:]] == x[order[:-1]]
+    keep = np.ones(n, bool)
+    keep[order[same]] = False
+    items = np.flatnonzero(keep).astype(np.int32)
+    item_start = np.zeros(nb + 1, np.int32)
+    np.cumsum(np.bincount(bucket[keep], minlength=nb), out=item_start[1:])
+    return items, item_start
+
+
 class RecordIndex:
     """Search index over one record set: per-bucket k-d trees of q_r = b_r*(cos phi_r, sin phi_r).
 
@@ -572,7 +781,8 @@ class RecordIndex:
         if isinstance(leaf_size, bool) or not isinstance(leaf_size, (int, np.integer)) or leaf_size < 1:
             raise RecordSetError(f"leaf_size must be an integer >= 1, got {leaf_size!r}")
         a, b, phi, bs, bma = _check_records(a, b, phi, bucket_start, bucket_min_a)
-        perm, bns, node_range, node_box = _build_trees(a, b, phi, bs, int(leaf_size))
+        items, item_start = _distinct_items(a, b, phi, bs)
+        perm, bns, node_range, node_box = _build_trees(a, b, phi, bs, items, item_start, int(leaf_size))
         self = object.__new__(cls)
         self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a = a, b, phi, bs, bma
         self.perm = perm

@@ -41,6 +41,8 @@ class Params:
     orca_tau: float = 2.0                 # ORCA horizon for other agents (common practice)
     orca_tau_walls: float = 0.5           # ORCA horizon for walls (common practice)
     max_dt: float = 1.0                   # larger steps are refused
+    headway_time: float = 0.5             # s; plan no faster than gap ahead / this (0 = off)
+    headway_cone: float = 30.0            # degrees either side of the route that count as "ahead"
     budget_ms: float = 0.0                # > 0: the governor picks search width and K per frame to fit this
     budget_coeffs: list = field(default_factory=lambda: list(_default_coeffs()))  # the governor's cost model
 
@@ -67,6 +69,10 @@ class Params:
             v = getattr(self, key)
             if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= hi:
                 bad(key, f"must be an integer in 0..{hi}, got {v!r}")
+        for key, hi in (("headway_time", 10.0), ("headway_cone", 90.0)):
+            v = getattr(self, key)
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or not 0 <= v <= hi:
+                bad(key, f"must be a number in [0, {hi}], got {v!r}")
         if isinstance(self.budget_ms, bool) or not isinstance(self.budget_ms, (int, float)) \
                 or not math.isfinite(self.budget_ms) or self.budget_ms < 0:
             bad("budget_ms", f"must be a number >= 0 (0 = no governor), got {self.budget_ms!r}")

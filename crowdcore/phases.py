@@ -110,3 +110,32 @@ def separation_phase(pos, radius, ids, nbr, nbr_count, overlap_tol, min_gap, ove
                 c += 1
         min_gap[i] = g
         overlaps[i] = c
+
+
+@parallel_kernel
+def headway_phase(pos, vel, radius, nav_dir, nbr, nbr_count, headway_time, cos_cone, pref_vel):
+    """Speed-headway rule: an agent plans to walk no faster than gap / headway_time, where gap is the
+    surface gap to the nearest neighbour ahead (within the cone around its route direction) that is
+    not walking towards it. People keep a time headway to the person in front; this is what makes
+    speed fall with density. Oncoming neighbours are left to avoidance, so counterflow cannot lock
+    on this rule. Scales pref_vel (own row only)."""
+    n = pos.shape[0]
+    for i in prange(n):
+        ex, ey = nav_dir[i, 0], nav_dir[i, 1]
+        if ex * ex + ey * ey == 0.0:
+            continue
+        limit = np.inf
+        for s in range(nbr_count[i]):
+            j = nbr[i, s]
+            dx, dy = pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]
+            d = np.hypot(dx, dy)
+            if d == 0.0 or dx * ex + dy * ey < cos_cone * d:
+                continue
+            if vel[j, 0] * ex + vel[j, 1] * ey < 0.0:
+                continue
+            limit = min(limit, max(0.0, d - radius[i] - radius[j]) / headway_time)
+        sp = np.hypot(pref_vel[i, 0], pref_vel[i, 1])
+        if sp > limit:
+            f = limit / sp
+            pref_vel[i, 0] *= f
+            pref_vel[i, 1] *= f

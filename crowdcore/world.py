@@ -320,6 +320,9 @@ class World:
         nav_dir = np.empty((n, 2))
         phases.navigate_phase(pos, a["pref_speed"], a["target"], nav.dir, nav.ox, nav.oy, nav.h, nav.nx, nav.ny,
                               pref_vel, nav_dir)
+        if p.headway_time > 0:
+            phases.headway_phase(pos, vel, a["radius"], nav_dir, nbr, nbr_count, p.headway_time,
+                                 math.cos(math.radians(p.headway_cone)), pref_vel)
         v_group = np.empty((n, 2))
         phases.group_pull_phase(pos, a["group"], self._group_centres(), pref_vel, a["pref_speed"], v_group)
         t3 = t(); ms["navigate"] = t3 - t2
@@ -365,21 +368,21 @@ class World:
         overlaps = np.empty(n, np.int32)
         phases.separation_phase(out_pos, a["radius"], a["ids"], nbr, nbr_count, 0.01, min_gap, overlaps)
         # commit: nothing above touched the world
-        keep = ~arrived
-        self.last_arrived = a["ids"][arrived].copy()
-        self.agents = {
-            "ids": a["ids"][keep], "pos": out_pos[keep], "vel": out_vel[keep], "prev_vel": vel[keep],
-            "pref_speed": a["pref_speed"][keep], "radius": a["radius"][keep], "target": a["target"][keep],
-            "group": a["group"][keep],
-        }
-        self.arrived_total += int(arrived.sum())
+        n_arrived = int(arrived.sum())
+        self.last_arrived = a["ids"][arrived]
+        new_state = dict(a, pos=out_pos, vel=out_vel, prev_vel=vel)
+        if n_arrived:  # arrivals leave the world; rows stay sorted by id
+            keep = ~arrived
+            new_state = {k: v[keep] for k, v in new_state.items()}
+        self.agents = new_state
+        self.arrived_total += n_arrived
         self.frame += 1
         self.time += dt
         self.stats = {
             "min_gap": float(min_gap.min()) if n else math.inf,
             "overlaps": int(overlaps.sum()),
             "blocked_moves": int(blocked.sum()),
-            "arrived": int(arrived.sum()),
+            "arrived": n_arrived,
             "fallbacks": int((rec < 0).sum()),
             "guarded": int(guarded.sum()),
             "search_width": z,

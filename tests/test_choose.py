@@ -134,6 +134,66 @@ def make_agents(rng, n, lines_max=0, special=True):
     return v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count
 
 
+def orca_like_lines(rng, agents, L, blocked=0.3):
+    """Invented ORCA-like half-planes: 1..L lines through points 0.05-0.5 from v_now, random directions.
+
+    A `blocked` share of agents also gets two facing half-planes whose allowed sides do not overlap,
+    so nothing is eligible for them. A few lines are degenerate on purpose (zero direction, huge point).
+    """
+    v_now = agents[0]
+    n = v_now.shape[0]
+    lines = np.zeros((n, L + 2, 4))
+    dist = rng.uniform(0.05, 0.5, (n, L))
+    lines[:, :L, :2] = v_now[:, None, :] + dist[:, :, None] * _unit(rng.uniform(-np.pi, np.pi, n * L)).reshape(n, L, 2)
+    scale = rng.choice([1.0, 0.01, 30.0], (n, L, 1))  # direction lengths vary: the tolerance is absolute
+    lines[:, :L, 2:] = _unit(rng.uniform(-np.pi, np.pi, n * L)).reshape(n, L, 2) * scale
+    line_count = rng.integers(1, L + 1, n).astype(np.int32)
+    odd = rng.random((n, L)) < 0.02
+    lines[:, :L, 2:][odd] = 0.0  # zero direction: det is 0, never violated
+    huge = rng.random((n, L)) < 0.02
+    # Far-away points; at 1e307 the pruning tests overflow and must leave such lines to `_allowed`.
+    lines[:, :L, :2][huge] *= rng.choice([1e200, 1e307], int(huge.sum()))[:, None]
+    blk = np.flatnonzero(rng.random(n) < blocked)
+    if len(blk):
+        nrm = _unit(rng.uniform(-np.pi, np.pi, len(blk)))  # allowed: x.n >= c + gap and x.n <= c
+        c = np.einsum("ij,ij->i", v_now[blk], nrm) + rng.uniform(-0.3, 0.3, len(blk))
+        gap = rng.choice([1e-3, 0.05, 0.5], len(blk))
+        tang = np.stack([-nrm[:, 1], nrm[:, 0]], axis=1)
+        lc = line_count[blk]
+        lines[blk, lc, :2] = (c + gap)[:, None] * nrm
+        lines[blk, lc, 2:] = -tang  # left of -tang is +n side
+        lines[blk, lc + 1, :2] = c[:, None] * nrm
+        lines[blk, lc + 1, 2:] = tang  # left of tang is -n side
+        line_count[blk] += 2
+    return lines, line_count
+
+
+def boundary_lines(rng, index, agents, first, L=3):
+    """Lines through the velocity of a record in the agent's range, shifted by 0..3e-9 across it:
+    records sit right at the LINE_EPS tolerance, where a sloppy pruning test would disagree.
+    The first line goes through record first[i] (the agent's pick without lines) when >= 0."""
+    v_now, v_pref, nav_dir = agents[:3]
+    n = v_now.shape[0]
+    lines = np.zeros((n, L, 4))
+    for i in range(n):
+        theta, s, _ = ch.agent_frame(*v_now[i], *v_pref[i], *nav_dir[i])
+        k = min(max(bisect.bisect_right(list(index.bucket_min_a), s) - 1, 0), index.n_buckets - 1)
+        lo, hi = index.bucket_start[k], index.bucket_start[k + 1]
+        for j in range(L):
+            if j == 0 and first[i] >= 0:
+                r = int(first[i])
+            else:
+                r = int(rng.integers(lo, hi)) if hi > lo else -1
+            ux, uy = ch.record_velocity(index.b[r], index.phi[r], theta) if r >= 0 else (0.0, 0.0)
+            d = _unit(rng.uniform(-np.pi, np.pi, 1))[0]
+            shift = rng.choice([0.0, 0.5e-9, 1e-9, 1.0000001e-9, 1.5e-9, 3e-9])  # towards the violated side
+            t = rng.uniform(-1.0, 1.0)
+            lines[i, j, 0] = ux + t * d[0] - shift * d[1]  # det(d, p - u) = shift
+            lines[i, j, 1] = uy + t * d[1] + shift * d[0]
+            lines[i, j, 2:] = d
+    return lines, rng.integers(1, L + 1, n).astype(np.int32)
+
+
 WEIGHT_CHOICES = [
     [1, 1, 1, 1, 1, 1], [0, 0, 0, 0, 0, 0], [1, 0, 0, 0, 0, 0], [0, 1, 0, 0, 0, 0], [0, 0, 0, 1, 0, 0],
     [0, 1, 0, 1, 0, 0], [1e8, 1, 1, 1e-8, 1, 0], [1e-12, 1e12, 0, 5, 0, 0], [2.5, 0.3, 1.7, 4.0, 0.0, 0.9],
@@ -207,6 +267,81 @@ def test_pruned_equals_full(seed, n_rec, buckets, z, strict, w, ties, leaf, line
     assert np.array_equal(vel_p, vel_f)
     none = rec_f < 0
     np.testing.assert_array_equal(vel_f[none], agents[3][none])
+
+
+@settings(max_examples=60, **SETTINGS)
+@given(seed=st.integers(0, 2**32 - 1), n_rec=st.integers(0, 3000), buckets=st.integers(1, 60),
+       z=st.integers(0, 5), w=weights_st(), ties=st.booleans(), leaf=st.sampled_from([1, 4, 32]),
+       L=st.integers(1, 10), blocked=st.sampled_from([0.0, 0.4, 1.0]))
+def test_pruned_equals_full_orca_like(seed, n_rec, buckets, z, w, ties, leaf, L, blocked):
+    # Strict mode under many ORCA-like half-planes near v_now: most records are ineligible.
+    rng = np.random.default_rng(seed)
+    recs = make_records(rng, n_rec, buckets, ties_only=ties)
+    agents = list(make_agents(rng, 150))
+    agents[6], agents[7] = orca_like_lines(rng, agents, L, blocked)
+    index = ch.RecordIndex.build(*recs, leaf_size=leaf)
+    vel_f, rec_f = run(ch.choose_full, index, w, z, True, agents)
+    vel_p, rec_p = run(ch.choose_pruned, index, w, z, True, agents)
+    np.testing.assert_array_equal(rec_p, rec_f)
+    assert np.array_equal(vel_p, vel_f)
+    if n_rec and blocked == 1.0:  # every agent has two disjoint half-planes (gap 1e-3 m/s or more)
+        assert (rec_f == -1).all()
+
+
+@settings(max_examples=25, **SETTINGS)
+@given(seed=st.integers(0, 2**32 - 1), n_rec=st.integers(1, 2000), leaf=st.sampled_from([1, 8, 32]),
+       w=weights_st())
+def test_pruned_equals_full_at_line_tolerance(seed, n_rec, leaf, w):
+    # Records exactly on, just inside and just outside the 1e-9 violation tolerance.
+    rng = np.random.default_rng(seed)
+    recs = make_records(rng, n_rec, 20)
+    index = ch.RecordIndex.build(*recs, leaf_size=leaf)
+    agents = list(make_agents(rng, 120))
+    first = run(ch.choose_full, index, w, 2, True, agents[:6] + [np.zeros((120, 0, 4)), np.zeros(120, np.int32)])[1]
+    agents[6], agents[7] = boundary_lines(rng, index, agents, first)
+    vel, rec = run(ch.choose_full, index, w, 2, True, agents)
+    vel_p, rec_p = run(ch.choose_pruned, index, w, 2, True, agents)
+    np.testing.assert_array_equal(rec_p, rec)
+    assert np.array_equal(vel_p, vel)
+    for i in range(0, 120, 7):  # and the full scan still agrees with the plain reference here
+        r_ref, _u = ref_choose((index.a, index.b, index.phi, index.bucket_start, index.bucket_min_a), w, 2, True,
+                               agents, i)
+        assert rec[i] == r_ref
+
+
+def test_infeasible_agents_skip_the_search():
+    # Invented: 20k records; every agent gets two half-planes with disjoint allowed sides.
+    rng = np.random.default_rng(21)
+    recs = make_records(rng, 20_000, 100)
+    index = ch.RecordIndex.build(*recs)
+    agents = list(make_agents(rng, 500, special=False))
+    agents[6], agents[7] = orca_like_lines(rng, agents, 4, blocked=1.0)
+    vel_f, rec_f = run(ch.choose_full, index, np.ones(6), 3, True, agents)
+    vel_p, rec_p = run(ch.choose_pruned, index, np.ones(6), 3, True, agents)
+    assert (rec_f == -1).all() and (rec_p == -1).all() and np.array_equal(vel_p, agents[3])
+    evals, visits = np.empty(500, np.int64), np.empty(500, np.int64)
+    ch.pruned_work(*index.pruned_args(), np.ones(6), 3, True, *agents, evals, visits)
+    assert evals.max() == 0 and visits.max() == 0  # the feasible region is empty: nothing is visited
+
+
+def test_duplicate_records_are_indexed_once_per_bucket():
+    # Bitwise copies inside a bucket are left out of its tree; copies in other buckets stay.
+    a = np.array([0.0, 0.0, 0.0, 0.0, 0.0, -0.0, 1.0, 1.0, 1.0])
+    b = np.array([0.0, 0.0, 0.0, 0.0, 0.1, 0.0, 1.0, 1.0, 1.0])
+    phi = np.array([0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.2, 0.2, -0.2])
+    a = np.sort(a, kind="stable")  # -0.0 == 0.0 keeps its place
+    bs = np.array([0, 3, 5, 9], np.int32)
+    items, starts = ch._distinct_items(a, b, phi, bs)
+    # bucket 0: 0 (1, 2 copy it); bucket 1: 3 (first here), 4; bucket 2: 5 (-0.0 bits differ), 6, 8 (7 copies 6)
+    assert items.tolist() == [0, 3, 4, 5, 6, 8] and starts.tolist() == [0, 1, 3, 6]
+    index = ch.RecordIndex.build(a, b, phi, bs, leaf_size=1)
+    assert sorted(index.perm.tolist()) == items.tolist()
+    agents = make_agents(np.random.default_rng(4), 60, lines_max=2)
+    for strict in (False, True):
+        for z in (0, 1, 2):
+            vf, rf = run(ch.choose_full, index, np.ones(6), z, strict, agents)
+            vp, rp = run(ch.choose_pruned, index, np.ones(6), z, strict, agents)
+            assert np.array_equal(rf, rp) and np.array_equal(vf, vp)
 
 
 def test_pruned_equals_full_realistic_set():

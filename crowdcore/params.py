@@ -13,7 +13,7 @@ DEFAULT_WEIGHTS = {
     "consistency": 1.0,  # the record starts from the present speed
     "expectation": 1.0,  # preferred speed along the route
     "direction": 0.5,    # follow the direction field
-    "avoidance": 3.0,    # stay near the collision-free velocity
+    "avoidance": 6.0,    # stay near the collision-free velocity
     "group": 1.0,        # hold the formation (only agents in a group)
 }
 
@@ -38,11 +38,16 @@ class Params:
     nav_cell: float = 0.25                # navigation grid cell size
     clearance: float = 0.25               # wall clearance used when rasterising the navigation grid
     max_speed_factor: float = 1.3         # an agent's speed limit = factor x its preferred speed
-    orca_tau: float = 2.0                 # ORCA horizon for other agents (common practice)
-    orca_tau_walls: float = 0.5           # ORCA horizon for walls (common practice)
+    orca_tau: float = 1.0                 # ORCA horizon for other agents (common practice; longer horizons
+                                          # made opposing streams stop short of each other and lock)
+    orca_tau_walls: float = 0.2           # ORCA horizon for walls (common practice: short, so agents may
+                                          # walk close along door frames; 0.5 s cut bottleneck flow)
     max_dt: float = 1.0                   # larger steps are refused
     headway_time: float = 0.5             # s; plan no faster than gap ahead / this (0 = off)
     headway_cone: float = 30.0            # degrees either side of the route that count as "ahead"
+    keep_right: float = 25.0              # degrees to turn right when someone walks towards you (0 = off)
+    jostle: float = 0.0                   # degrees of shuffling for agents pressed and stuck (0 = off)
+    look_ahead: float = 10.0              # m along the route where an opposing flow counts as oncoming
     budget_ms: float = 0.0                # > 0: the governor picks search width and K per frame to fit this
     budget_coeffs: list = field(default_factory=lambda: list(_default_coeffs()))  # the governor's cost model
 
@@ -69,7 +74,8 @@ class Params:
             v = getattr(self, key)
             if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= hi:
                 bad(key, f"must be an integer in 0..{hi}, got {v!r}")
-        for key, hi in (("headway_time", 10.0), ("headway_cone", 90.0)):
+        for key, hi in (("headway_time", 10.0), ("headway_cone", 90.0), ("keep_right", 90.0), ("look_ahead", 50.0),
+                        ("jostle", 180.0)):
             v = getattr(self, key)
             if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or not 0 <= v <= hi:
                 bad(key, f"must be a number in [0, {hi}], got {v!r}")

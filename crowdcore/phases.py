@@ -112,30 +112,110 @@ def separation_phase(pos, radius, ids, nbr, nbr_count, overlap_tol, min_gap, ove
         overlaps[i] = c
 
 
+@kernel
+def _unit_hash(seed, a, b):
+    """A number in [0, 1) from (seed, a, b): splitmix64 finaliser over their mix (counter-based)."""
+    z = np.uint64(seed) ^ (np.uint64(a) * np.uint64(0x9E3779B97F4A7C15)) ^ (np.uint64(b) * np.uint64(0xC2B2AE3D27D4EB4F))
+    z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+    z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+    z = z ^ (z >> np.uint64(31))
+    return float(z >> np.uint64(11)) * (1.0 / 9007199254740992.0)
+
+
+@kernel
+def flow_grid(pos, vel, ox, oy, cell, nx, ny, flow):
+    """Sum of velocities and count per coarse cell (flow[cy, cx] = (sum vx, sum vy, count)).
+
+    Serial over rows (kept in id order), so the sums are the same on any thread count."""
+    flow[:] = 0.0
+    for i in range(pos.shape[0]):
+        cx = int(np.floor((pos[i, 0] - ox) / cell))
+        cy = int(np.floor((pos[i, 1] - oy) / cell))
+        if 0 <= cx < nx and 0 <= cy < ny:
+            flow[cy, cx, 0] += vel[i, 0]
+            flow[cy, cx, 1] += vel[i, 1]
+            flow[cy, cx, 2] += 1.0
+
+
+@kernel
+def _opposing_flow(flow, ox, oy, cell, x, y, ex, ey, look_ahead):
+    """True if a cell ahead (every half cell up to look_ahead) holds agents whose mean velocity
+    opposes the direction (ex, ey) by more than 0.3 m/s."""
+    ny, nx = flow.shape[0], flow.shape[1]
+    steps = int(look_ahead / (0.5 * cell))
+    for k in range(1, steps + 1):
+        qx = x + ex * 0.5 * cell * k
+        qy = y + ey * 0.5 * cell * k
+        cx = int(np.floor((qx - ox) / cell))
+        cy = int(np.floor((qy - oy) / cell))
+        if 0 <= cx < nx and 0 <= cy < ny and flow[cy, cx, 2] > 0.0:
+            if (flow[cy, cx, 0] * ex + flow[cy, cx, 1] * ey) < -0.3 * flow[cy, cx, 2]:
+                return True
+    return False
+
+
 @parallel_kernel
-def headway_phase(pos, vel, radius, nav_dir, nbr, nbr_count, headway_time, cos_cone, pref_vel):
-    """Speed-headway rule: an agent plans to walk no faster than gap / headway_time, where gap is the
-    surface gap to the nearest neighbour ahead (within the cone around its route direction) that is
-    not walking towards it. People keep a time headway to the person in front; this is what makes
-    speed fall with density. Oncoming neighbours are left to avoidance, so counterflow cannot lock
-    on this rule. Scales pref_vel (own row only)."""
+def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_time, cos_cone, keep_right,
+                      flow, fox, foy, fcell, look_ahead, jostle, seed, frame, pref_vel):
+    """Two walking conventions that shape the preferred velocity (own row only):
+
+    - time headway: an agent plans no faster than gap / headway_time, where gap is the surface gap to
+      the nearest neighbour ahead (in the cone around its route) that is not walking towards it. This
+      is what makes speed fall with density.
+    - keep right: with someone walking towards it ahead (a neighbour, or an opposing mean flow in the
+      flow grid up to look_ahead metres along its route), an agent turns its preferred direction by
+      keep_right radians clockwise, so opposing streams pass left side to left side and form lanes
+      before they meet instead of locking head-on.
+    - jostle: an agent that is pressed against a neighbour and barely moving turns its preferred
+      direction by a pseudo-random angle up to +-jostle radians, redrawn every half second. People
+      in a jam shuffle; without it, an arch of agents at a narrow door would hold for ever. The
+      angle comes from a counter-based hash of (seed, agent id, frame // 5), so it is the same on
+      every thread count and after a snapshot.
+    Each is off when its parameter is 0."""
     n = pos.shape[0]
+    ck, sk = np.cos(keep_right), np.sin(keep_right)
     for i in prange(n):
         ex, ey = nav_dir[i, 0], nav_dir[i, 1]
         if ex * ex + ey * ey == 0.0:
             continue
         limit = np.inf
+        oncoming = False
         for s in range(nbr_count[i]):
             j = nbr[i, s]
             dx, dy = pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]
             d = np.hypot(dx, dy)
-            if d == 0.0 or dx * ex + dy * ey < cos_cone * d:
+            ahead = dx * ex + dy * ey
+            if d == 0.0 or ahead <= 0.0:
                 continue
             if vel[j, 0] * ex + vel[j, 1] * ey < 0.0:
+                oncoming = True   # anyone ahead walking towards us, not just in the headway cone
                 continue
-            limit = min(limit, max(0.0, d - radius[i] - radius[j]) / headway_time)
-        sp = np.hypot(pref_vel[i, 0], pref_vel[i, 1])
+            if ahead < cos_cone * d:
+                continue
+            if headway_time > 0.0:
+                limit = min(limit, max(0.0, d - radius[i] - radius[j]) / headway_time)
+        stuck = False
+        if jostle != 0.0 and vel[i, 0] * vel[i, 0] + vel[i, 1] * vel[i, 1] < 0.04 * (
+                pref_vel[i, 0] * pref_vel[i, 0] + pref_vel[i, 1] * pref_vel[i, 1]):
+            for s in range(nbr_count[i]):
+                j = nbr[i, s]
+                if np.hypot(pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]) - radius[i] - radius[j] < 0.05:
+                    stuck = True
+                    break
+        if not oncoming and keep_right != 0.0:
+            oncoming = _opposing_flow(flow, fox, foy, fcell, pos[i, 0], pos[i, 1], ex, ey, look_ahead)
+        px, py = pref_vel[i, 0], pref_vel[i, 1]
+        sp = np.hypot(px, py)
         if sp > limit:
             f = limit / sp
-            pref_vel[i, 0] *= f
-            pref_vel[i, 1] *= f
+            px *= f
+            py *= f
+        if oncoming and keep_right != 0.0:
+            px, py = ck * px + sk * py, -sk * px + ck * py
+        if stuck:
+            u = _unit_hash(seed, ids[i], frame // 5)
+            ang = (2.0 * u - 1.0) * jostle
+            ca, sa = np.cos(ang), np.sin(ang)
+            px, py = ca * px - sa * py, sa * px + ca * py
+        pref_vel[i, 0] = px
+        pref_vel[i, 1] = py

@@ -111,6 +111,7 @@ class World:
         xmin, ymin, xmax, ymax = cache.bounds
         self._hash = HashGrid.covering(xmin, ymin, xmax, ymax, self.params.sense_radius)
         self._hash_start = np.zeros(self._hash.nx * self._hash.ny + 1, np.int32)
+        self._flow_grid = HashGrid.covering(xmin, ymin, xmax, ymax, 1.5, max_cells=1 << 20)
 
     def set_bounds(self, xmin, ymin, xmax, ymax):
         """Extend the simulated area (navigation grid and hash) to cover these bounds."""
@@ -320,9 +321,14 @@ class World:
         nav_dir = np.empty((n, 2))
         phases.navigate_phase(pos, a["pref_speed"], a["target"], nav.dir, nav.ox, nav.oy, nav.h, nav.nx, nav.ny,
                               pref_vel, nav_dir)
-        if p.headway_time > 0:
-            phases.headway_phase(pos, vel, a["radius"], nav_dir, nbr, nbr_count, p.headway_time,
-                                 math.cos(math.radians(p.headway_cone)), pref_vel)
+        if p.headway_time > 0 or p.keep_right > 0 or p.jostle > 0:
+            fg = self._flow_grid
+            flow = np.empty((fg.ny, fg.nx, 3))
+            phases.flow_grid(pos, vel, *fg.args, flow)
+            phases.conventions_phase(pos, vel, a["radius"], a["ids"], nav_dir, nbr, nbr_count, p.headway_time,
+                                     math.cos(math.radians(p.headway_cone)), math.radians(p.keep_right),
+                                     flow, fg.ox, fg.oy, fg.cell, p.look_ahead, math.radians(p.jostle),
+                                     self.seed & 0xFFFFFFFFFFFFFFFF, self.frame, pref_vel)
         v_group = np.empty((n, 2))
         phases.group_pull_phase(pos, a["group"], self._group_centres(), pref_vel, a["pref_speed"], v_group)
         t3 = t(); ms["navigate"] = t3 - t2

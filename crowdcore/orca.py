@@ -19,7 +19,7 @@ import numpy as np
 from numba import prange
 
 from ._jit import kernel, parallel_kernel
-from .spatial import walls_near
+from .spatial import any_wall_near, walls_near
 
 _EPS = 1e-9           # parallel-line test in the linear programs
 _WALL_MARGIN = 0.01   # m, added to the wall query reach so segments at the edge are not missed
@@ -172,7 +172,10 @@ def _lp1(ln, no, vmax, optx, opty, dir_opt, rx, ry):
 def _lp2(ln, count, vmax, optx, opty, dir_opt):
     """Incremental 2-D LP over lines 0..count-1 in the given order. Returns (fail, x, y):
     fail == count when feasible, else the first line that could not be satisfied (x, y is then
-    the best point for the lines before it)."""
+    the best point for the lines before it).
+
+    The 1-D step (_lp1) is written out inline: a helper call with an array argument costs atomic
+    reference counting, and it runs once per violated line. Same arithmetic, same order."""
     if dir_opt:
         rx, ry = optx * vmax, opty * vmax     # opt is a unit direction here
     else:
@@ -182,12 +185,39 @@ def _lp2(ln, count, vmax, optx, opty, dir_opt):
             rx, ry = optx / s * vmax, opty / s * vmax
         else:
             rx, ry = optx, opty
-    for k in range(count):
-        if _det(ln[k, 2], ln[k, 3], ln[k, 0] - rx, ln[k, 1] - ry) > 0.0:
-            ok, nx, ny = _lp1(ln, k, vmax, optx, opty, dir_opt, rx, ry)
-            if not ok:
-                return k, rx, ry
-            rx, ry = nx, ny
+    for no in range(count):
+        ptx, pty, dx, dy = ln[no, 0], ln[no, 1], ln[no, 2], ln[no, 3]
+        if _det(dx, dy, ptx - rx, pty - ry) <= 0.0:
+            continue
+        # best point on line `no` subject to lines 0..no-1 and the speed disc (see _lp1)
+        dot = ptx * dx + pty * dy
+        disc = dot * dot + vmax * vmax - (ptx * ptx + pty * pty)
+        if disc < 0.0:
+            return no, rx, ry         # the line misses the speed disc
+        sq = np.sqrt(disc)
+        t_lo = -dot - sq
+        t_hi = -dot + sq
+        for k in range(no):
+            kdx, kdy = ln[k, 2], ln[k, 3]
+            denom = _det(dx, dy, kdx, kdy)
+            numer = _det(kdx, kdy, ptx - ln[k, 0], pty - ln[k, 1])
+            if abs(denom) <= _EPS:
+                if numer < 0.0:
+                    return no, rx, ry  # parallel and on the forbidden side of line k
+                continue
+            t = numer / denom
+            if denom >= 0.0:
+                t_hi = min(t_hi, t)
+            else:
+                t_lo = max(t_lo, t)
+            if t_lo > t_hi:
+                return no, rx, ry
+        if dir_opt:
+            t = t_hi if optx * dx + opty * dy > 0.0 else t_lo
+        else:
+            t = dx * (optx - ptx) + dy * (opty - pty)
+            t = min(max(t, t_lo), t_hi)
+        rx, ry = ptx + t * dx, pty + t * dy
     return count, rx, ry
 
 
@@ -248,59 +278,53 @@ def solve_lines(ln, count, n_hard, vmax, prefx, prefy, proj):
 
 # ------------------------------------------------------------------ phase kernel
 
-@kernel
-def _orca_agent(i, pos, vel, radius, max_speed, pref_vel, nbr, nbr_count, walls, wall_cell_start,
-                wall_cell_items, ox, oy, wc, wnx, wny, tau, tau_obst, dt, ln, cand, proj):
-    """Lines and safe velocity of agent i; ln is lines[i]. Returns (line count, vx, vy)."""
-    cap = ln.shape[0]
-    px, py = pos[i, 0], pos[i, 1]
-    vx, vy = vel[i, 0], vel[i, 1]
-    r = radius[i]
-    vmax = max_speed[i]
-    reach = r + vmax * tau_obst + _WALL_MARGIN
-    m = 0
-    if walls.shape[0] > 0 and cap > 0:
-        nc = walls_near(px, py, reach, walls, wall_cell_start, wall_cell_items, ox, oy, wc, wnx, wny, cand)
-        for c in range(nc):
-            s = cand[c]
-            qx, qy, dx, dy, d = wall_line(px, py, vx, vy, r, walls[s, 0], walls[s, 1], walls[s, 2],
-                                          walls[s, 3], tau_obst, dt)
-            if d > reach:
-                continue   # cannot bind: n . v <= |v| <= vmax < (d - r)/tau_obst
-            ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = qx, qy, dx, dy
-            m += 1
-            if m == cap:
-                break
-    n_walls = m
-    for s in range(nbr_count[i]):
-        if m == cap:
-            break
-        j = nbr[i, s]
-        if j < 0 or j == i:
-            continue
-        qx, qy, dx, dy = agent_line(i, j, px, py, vx, vy, r, pos[j, 0], pos[j, 1], vel[j, 0], vel[j, 1],
-                                    radius[j], tau, dt)
-        ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = qx, qy, dx, dy
-        m += 1
-    rx, ry = solve_lines(ln, m, n_walls, vmax, pref_vel[i, 0], pref_vel[i, 1], proj)
-    return m, rx, ry
-
-
 @parallel_kernel
 def orca_phase(pos, vel, radius, max_speed, pref_vel, nbr, nbr_count, walls, wall_cell_start,
                wall_cell_items, ox, oy, wc, wnx, wny, tau, tau_obst, dt, lines, line_count, v_safe):
     """ORCA for every agent: lines[i, :line_count[i]] (walls first, then neighbours; lines beyond
-    the capacity L = lines.shape[1] are dropped, walls kept first) and v_safe[i]."""
+    the capacity L = lines.shape[1] are dropped, walls kept first) and v_safe[i].
+
+    The per-agent body is written out in the loop: a helper taking a dozen arrays paid two atomic
+    reference-count updates per array per agent, more than the half-plane arithmetic."""
     n = pos.shape[0]
     cap = lines.shape[1]
     nblocks = (n + _BLOCK - 1) // _BLOCK
+    has_walls = walls.shape[0] > 0 and cap > 0
     for b in prange(nblocks):
         cand = np.empty(max(walls.shape[0], 1), np.int32)
         proj = np.empty((max(cap, 1), 4), np.float64)
         for i in range(b * _BLOCK, min((b + 1) * _BLOCK, n)):
-            m, rx, ry = _orca_agent(i, pos, vel, radius, max_speed, pref_vel, nbr, nbr_count, walls,
-                                    wall_cell_start, wall_cell_items, ox, oy, wc, wnx, wny, tau, tau_obst,
-                                    dt, lines[i], cand, proj)
+            ln = lines[i]
+            px, py = pos[i, 0], pos[i, 1]
+            vx, vy = vel[i, 0], vel[i, 1]
+            r = radius[i]
+            vmax = max_speed[i]
+            reach = r + vmax * tau_obst + _WALL_MARGIN
+            m = 0
+            if has_walls and any_wall_near(px, py, reach, wall_cell_start, ox, oy, wc, wnx, wny):
+                nc = walls_near(px, py, reach, walls, wall_cell_start, wall_cell_items, ox, oy, wc, wnx, wny, cand)
+                for c in range(nc):
+                    s = cand[c]
+                    qx, qy, dx, dy, d = wall_line(px, py, vx, vy, r, walls[s, 0], walls[s, 1], walls[s, 2],
+                                                  walls[s, 3], tau_obst, dt)
+                    if d > reach:
+                        continue   # cannot bind: n . v <= |v| <= vmax < (d - r)/tau_obst
+                    ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = qx, qy, dx, dy
+                    m += 1
+                    if m == cap:
+                        break
+            n_walls = m
+            for s in range(nbr_count[i]):
+                if m == cap:
+                    break
+                j = nbr[i, s]
+                if j < 0 or j == i:
+                    continue
+                qx, qy, dx, dy = agent_line(i, j, px, py, vx, vy, r, pos[j, 0], pos[j, 1], vel[j, 0], vel[j, 1],
+                                            radius[j], tau, dt)
+                ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = qx, qy, dx, dy
+                m += 1
+            rx, ry = solve_lines(ln, m, n_walls, vmax, pref_vel[i, 0], pref_vel[i, 1], proj)
             line_count[i] = m
             v_safe[i, 0] = rx
             v_safe[i, 1] = ry

@@ -86,13 +86,19 @@ def _insert_sorted(best_d, best_j, count, k, d, j, ids):
 _BLOCK = 64  # agents per parallel work item; scratch buffers are allocated once per block
 
 
+_CHUNK = 64  # candidates filtered per pass in knn_phase
+
+
 @parallel_kernel
 def knn_phase(pos, ids, cell_start, cell_items, ox, oy, cell, nx, ny, radius, nbr, nbr_count):
     """For every agent, up to K = nbr.shape[1] nearest other agents within `radius`.
 
-    Writes nbr[i, :nbr_count[i]] as row indices sorted by (squared distance, id). The top-K
-    insertion is written out inline: calling a helper with array arguments costs atomic
-    reference counting per call, which dominated this loop."""
+    Writes nbr[i, :nbr_count[i]] as row indices sorted by (squared distance, id). Cells gx0..gx1
+    of one grid row are consecutive in cell_items, so each row of the query square is one run of
+    candidates; a branch-free pass keeps those within the radius (about a third), and only they
+    reach the top-K insertion. The insertion is written out inline: calling a helper with array
+    arguments costs atomic reference counting per call, which dominated this loop. The result is
+    the K smallest (distance^2, id) keys, whatever order candidates arrive in (ids are unique)."""
     n = pos.shape[0]
     k = nbr.shape[1]
     r2 = radius * radius
@@ -101,22 +107,38 @@ def knn_phase(pos, ids, cell_start, cell_items, ox, oy, cell, nx, ny, radius, nb
     for b in prange(nblocks):
         best_d = np.empty(k + 1, np.float64)
         best_j = np.empty(k + 1, np.int32)
+        cd = np.empty(_CHUNK, np.float64)
+        cj = np.empty(_CHUNK, np.int32)
         for i in range(b * _BLOCK, min((b + 1) * _BLOCK, n)):
             count = 0
             x, y = pos[i, 0], pos[i, 1]
             cx, cy = _cell_of(x, y, ox, oy, cell, nx, ny)
-            for gy in range(max(cy - reach, 0), min(cy + reach, ny - 1) + 1):
-                for gx in range(max(cx - reach, 0), min(cx + reach, nx - 1) + 1):
-                    c = gy * nx + gx
-                    for s in range(cell_start[c], cell_start[c + 1]):
+            gx0 = max(cx - reach, 0)
+            gx1 = min(cx + reach, nx - 1)
+            lim = r2
+            for t in range(2 * reach + 1):
+                # the agent's own row first, then outwards (0, +1, -1, +2, ...): near candidates
+                # fill the list early and tighten `lim`, so fewer of the rest reach the insertion
+                gy = cy + (t + 1) // 2 if t % 2 else cy - t // 2
+                if gy < 0 or gy >= ny:
+                    continue
+                s1 = cell_start[gy * nx + gx1 + 1]
+                s0 = cell_start[gy * nx + gx0]
+                while s0 < s1 and k > 0:
+                    e = min(s0 + _CHUNK, s1)
+                    m = 0
+                    for s in range(s0, e):
                         j = cell_items[s]
-                        if j == i or k == 0:
-                            continue
                         dx = pos[j, 0] - x
                         dy = pos[j, 1] - y
                         d = dx * dx + dy * dy
-                        if d > r2:
-                            continue
+                        cd[m] = d
+                        cj[m] = j
+                        m += (d <= lim) & (j != i)
+                    s0 = e
+                    for q in range(m):
+                        d = cd[q]
+                        j = cj[q]
                         idj = ids[j]
                         if count == k:
                             last = best_j[k - 1]
@@ -131,6 +153,8 @@ def knn_phase(pos, ids, cell_start, cell_items, ox, oy, cell, nx, ny, radius, nb
                         best_d[p] = d
                         best_j[p] = j
                         count += 1
+                        if count == k:
+                            lim = best_d[k - 1]   # a candidate beyond the K-th cannot enter
             for s in range(count):
                 nbr[i, s] = best_j[s]
             for s in range(count, k):
@@ -216,6 +240,21 @@ def walls_near(x, y, reach, walls, wall_cell_start, wall_cell_items, ox, oy, wc,
                 out[p] = w
                 count += 1
     return count
+
+
+@kernel
+def any_wall_near(x, y, reach, wall_cell_start, ox, oy, wc, wnx, wny):
+    """False when no cell within `reach` of (x, y) lists a segment, so walls_near would find none.
+
+    Cheap enough to run for every agent: most agents are far from every wall, and skipping the
+    walls_near call also skips its per-call array reference counting."""
+    cx0, cy0 = _cell_of(x - reach, y - reach, ox, oy, wc, wnx, wny)
+    cx1, cy1 = _cell_of(x + reach, y + reach, ox, oy, wc, wnx, wny)
+    for gy in range(cy0, cy1 + 1):
+        # cells cx0..cx1 of one row are consecutive in the CSR lists
+        if wall_cell_start[gy * wnx + cx1 + 1] > wall_cell_start[gy * wnx + cx0]:
+            return True
+    return False
 
 
 @kernel

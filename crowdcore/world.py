@@ -109,7 +109,8 @@ class World:
         cache = SceneCache(scene, self.params, bounds)  # may raise: nothing replaced yet
         self.scene, self._cache = scene, cache
         xmin, ymin, xmax, ymax = cache.bounds
-        self._hash = HashGrid.covering(xmin, ymin, xmax, ymax, self.params.sense_radius)
+        # cells a third of the sense radius: fewer far candidates per query (measured fastest)
+        self._hash = HashGrid.covering(xmin, ymin, xmax, ymax, self.params.sense_radius / 3)
         self._hash_start = np.zeros(self._hash.nx * self._hash.ny + 1, np.int32)
         self._flow_grid = HashGrid.covering(xmin, ymin, xmax, ymax, 1.5, max_cells=1 << 20)
 

@@ -69,3 +69,62 @@ def test_neighbour_list_shortcut_equals_hash_search(seed, n):
     out_a, _ = _guard(*a, 0.1)
     out_b, _ = _guard(*b, 0.1)
     assert np.array_equal(out_a, out_b)
+
+
+# ------------------------------------------------------------------ pinned outputs
+# The sense, avoid and guard kernels were sped up (inlined per-agent bodies, fewer array-argument
+# calls, a branch-free radius filter) without changing any arithmetic. These digests are of the
+# outputs of the implementation before that change (commit 6e54967), on an invented dense scene
+# with walls; any change to a result, even in the last bit, changes them.
+PINNED = {
+    "knn": "9e9ebe56cd5a8b42e5e57965b4890a1121b0e1fa7c2f284c375bd86bf5116ad7",
+    "orca": "47629176b9b294abc01b1af677cb834fa16323e1685bd2a71274730b9c3a0ecf",
+    "guard": "a6dd1f320071166b36d165b3d848a06d561401099c0903144ee16480e523ca92",
+}
+
+
+def _pinned_outputs():
+    import hashlib
+    from crowdcore.orca import orca_phase
+    rng = np.random.default_rng(20240611)
+    n, k, cap = 900, 10, 26
+    pos = rng.uniform(0.2, 7.8, (n, 2))              # ~14 agents/m^2: overlaps, full lists, hash search
+    pos[5] = pos[4]                                  # coincident agents
+    pos[:20] = np.round(pos[:20] * 4) / 4            # exact distance ties
+    ids = rng.permutation(np.arange(3, n + 3)).astype(np.int32)
+    vel = rng.normal(0, 1.0, (n, 2))
+    radius = rng.uniform(0.15, 0.3, n)
+    vmax = rng.uniform(0.8, 2.2, n)
+    pref = rng.normal(0, 1.2, (n, 2))
+    pref[::3] *= 1e-3                                # mostly allowed: the guard returns these unchanged
+    g = HashGrid.covering(-1, -1, 9, 9, 1.2)
+    start = np.zeros(g.nx * g.ny + 1, np.int32)
+    items = np.zeros(n, np.int32)
+    build_hash(pos, *g.args, start, items)
+    nbr = np.zeros((n, k), np.int32)
+    cnt = np.zeros(n, np.int32)
+    knn_phase(pos, ids, start, items, *g.args, 1.2, nbr, cnt)
+    wg = HashGrid.covering(-1, -1, 9, 9, 2.0)
+    ws, wi = build_wall_grid(WALLS, wg, 0.01)
+    lines = np.zeros((n, cap, 4))
+    lc = np.zeros(n, np.int32)
+    vs = np.zeros((n, 2))
+    orca_phase(pos, vel, radius, vmax, pref, nbr, cnt, WALLS, ws, wi, *wg.args, 2.0, 0.5, 0.1, lines, lc, vs)
+    used = np.arange(cap)[None, :] < lc[:, None]
+    out = np.zeros((n, 2))
+    changed = np.zeros(n, np.bool_)
+    contact_guard_phase(pos, ids, radius, vmax, pref, nbr, cnt, 1.2, start, items, *g.args, WALLS, ws, wi, *wg.args,
+                        0.1, out, changed)
+
+    def digest(*arrays):
+        h = hashlib.sha256()
+        for a in arrays:
+            h.update(np.ascontiguousarray(a).tobytes())
+        return h.hexdigest()
+    return {"knn": digest(nbr, cnt), "orca": digest(lines[used], lc, vs), "guard": digest(out, changed)}, changed
+
+
+def test_kernels_bit_identical_to_pinned_outputs():
+    got, changed = _pinned_outputs()
+    assert 0 < changed.sum() < len(changed)          # both the unchanged and the projected path ran
+    assert got == PINNED

@@ -5,8 +5,13 @@ Three regimes: non-strict; strict with up to 4 mild half-planes ("easy"); strict
 half-planes per agent, about 40% of agents left without an eligible record ("constrained").
 Prints one JSON object. Compilation is excluded (warm-up call first); times are medians.
 
+A fourth regime, "scene", times the choose phase of a real world step: scene square-1 with
+--scene-agents agents (ORCA, strict, default records) after 5 steps, inputs from
+crowdcore.budget.choose_inputs, one thread, CPU time per agent (the machine is shared, so CPU time
+is steadier than wall time). --scene-agents 0 skips it.
+
     NUMBA_CACHE_DIR=/tmp/nb python bench/choose_micro.py [--records 80000] [--agents 10000] [--repeat 5]
-        [--lines 10] [--out result.json]
+        [--lines 10] [--scene-agents 10000] [--out result.json]
 """
 import argparse
 import json
@@ -101,6 +106,45 @@ def _median_ms(fn, repeat):
     return float(np.median(wall)), float(np.median(cpu))
 
 
+def scene_regime(n_agents, repeat, steps=5):
+    """CPU microseconds per agent of the choose phase in a real world step, one thread."""
+    from crowdcore import _jit
+    from crowdcore.budget import build_scene, choose_inputs
+
+    world = build_scene("square-1", n_agents, 0, None, None)
+    for _ in range(steps):
+        world.step()
+    inp = choose_inputs(world)
+    index = world._index
+    n = world.agent_count
+    threads = ch.numba.get_num_threads()
+    _jit.set_threads(1)
+    try:
+        outs = {}
+        for name, fn in (("full", ch.choose_full), ("pruned", ch.choose_pruned)):
+            vel, rec = np.empty((n, 2)), np.empty(n, np.int32)
+            run = lambda: index.run(fn, *inp, vel, rec)  # noqa: E731
+            run()  # warm-up
+            _wall, cpu = _median_ms(run, max(1, repeat if name == "pruned" else min(repeat, 3)))
+            outs[name] = (cpu, vel, rec)
+        evals, visits = np.empty(n, np.int64), np.empty(n, np.int64)
+        ch.pruned_work(*index.pruned_args(), *inp, evals, visits)
+    finally:
+        _jit.set_threads(threads)
+    full_cpu, pruned_cpu = outs["full"][0], outs["pruned"][0]
+    return {"scene": "square-1", "agents": n, "steps_before": steps, "threads": 1,
+            "records": index.n_records, "buckets": index.n_buckets, "leaf_size": index.leaf_size,
+            "half_planes_per_agent": float(inp[10].mean()),
+            "full_cpu_us_per_agent": round(full_cpu * 1e3 / n, 3),
+            "pruned_cpu_us_per_agent": round(pruned_cpu * 1e3 / n, 3),
+            "cpu_speedup": round(full_cpu / pruned_cpu, 2),
+            "identical_records": bool(np.array_equal(outs["full"][2], outs["pruned"][2])),
+            "identical_velocities": bool(np.array_equal(outs["full"][1], outs["pruned"][1])),
+            "agents_without_record": int((outs["full"][2] < 0).sum()),
+            "mean_energies_pruned": float(evals.mean()), "max_energies_pruned": int(evals.max()),
+            "mean_nodes_pruned": float(visits.mean())}
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--records", type=int, default=80_000)
@@ -111,6 +155,8 @@ def main(argv=None):
     ap.add_argument("--repeat", type=int, default=5)
     ap.add_argument("--seed", type=int, default=7)
     ap.add_argument("--lines", type=int, default=10, help="half-planes per agent in the constrained regime")
+    ap.add_argument("--scene-agents", type=int, default=10_000,
+                    help="agents in the real-scene regime (0 skips it)")
     ap.add_argument("--out", help="also write the JSON here (atomically)")
     args = ap.parse_args(argv)
 
@@ -153,6 +199,8 @@ def main(argv=None):
             "agents_without_record": int((rec_f < 0).sum()),
             "mean_energies_pruned": float(evals.mean()), "max_energies_pruned": int(evals.max()),
             "mean_nodes_pruned": float(visits.mean())}
+    if args.scene_agents > 0:
+        result["scene"] = scene_regime(args.scene_agents, args.repeat)
     result["machine"] = {"cpu_count": os.cpu_count(), "python": platform.python_version(),
                          "processor": platform.processor() or platform.machine(),
                          "note": "shared machine: other jobs may inflate both timings"}

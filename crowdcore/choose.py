@@ -39,7 +39,7 @@ LINE_EPS = 1e-9         # half-plane violation tolerance in strict mode (contrac
 _MARGIN_REL = 1e-9      # prune only when a bound beats the best by this fraction of the energy scale
 _FEAS_REL = 1e-9        # strict-mode feasibility tests are relaxed by this fraction of each line's scale
 _BIG = 1.7976931348623157e308  # largest float64: energy bounds are capped here, inf means infeasible
-_STACK = 64             # DFS stack entries; tree depth is at most 31
+_BLOCK = 64             # agents per parallel work item (scratch buffers are shared within a block)
 _NODE_COLS = 13         # qx_lo qx_hi qy_lo qy_hi a_lo a_hi phi_lo phi_hi cos/sin(phi_lo) cos/sin(phi_hi) b_lo
 
 
@@ -76,6 +76,16 @@ def energy(a_r, b_r, phi_r, theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vs
     The direction cosine uses the heading angle theta+phi_r, which is the angle of u_r when
     b_r > 0 and the contract's rule when b_r == 0. dn == 0 drops the direction term.
     """
+    e, _ux, _uy = _energy_uv(a_r, b_r, phi_r, theta, s, dn, w[0], w[1], w[2], w[3], w[4], w[5],
+                             vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
+    return e
+
+
+@kernel
+def _energy_uv(a_r, b_r, phi_r, theta, s, dn, w0, w1, w2, w3, w4, w5,
+               vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
+    """`energy` with the weights as scalars (no array argument, so no refcounting in hot loops);
+    also returns u_r, bitwise equal to `record_velocity`."""
     ang = theta + phi_r
     ca = math.cos(ang)
     sa = math.sin(ang)
@@ -83,21 +93,21 @@ def energy(a_r, b_r, phi_r, theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vs
     uy = b_r * sa
     ex = ux - vnx
     ey = uy - vny
-    e = w[0] * (ex * ex + ey * ey)
+    e = w0 * (ex * ex + ey * ey)
     da = a_r - s
-    e += w[1] * (da * da)
+    e += w1 * (da * da)
     ex = ux - vpx
     ey = uy - vpy
-    e += w[2] * (ex * ex + ey * ey)
+    e += w2 * (ex * ex + ey * ey)
     if dn > 0.0:
-        e += w[3] * (1.0 - (ca * dx + sa * dy) / dn)
+        e += w3 * (1.0 - (ca * dx + sa * dy) / dn)
     ex = ux - vsx
     ey = uy - vsy
-    e += w[4] * (ex * ex + ey * ey)
+    e += w4 * (ex * ex + ey * ey)
     ex = ux - vgx
     ey = uy - vgy
-    e += w[5] * (ex * ex + ey * ey)
-    return e
+    e += w5 * (ex * ex + ey * ey)
+    return e, ux, uy
 
 
 @kernel
@@ -303,39 +313,54 @@ def _build_trees(a, b, phi, bucket_start, items, item_start, leaf_size):
 
 
 @kernel
-def _clip(px, py, n, hx, hy, h0, ox, oy):
-    # Sutherland-Hodgman: keep the part of polygon (px, py)[:n] where h0 + hx*x + hy*y <= 0.
+def _clip(poly, src, n, hx, hy, h0):
+    """Sutherland-Hodgman on the scratch table `poly` (rows x, y of two polygons): keeps the part of
+    polygon `src` (n vertices) where h0 + hx*x + hy*y <= 0. Returns (polygon now holding it, count).
+    Rows are indexed, not sliced: a view would cost an atomic refcount per call."""
     if n == 0:
-        return 0
+        return src, 0
+    sx = 2 * src
+    sy = sx + 1
+    inside = True
+    for k in range(n):
+        if h0 + hx * poly[sx, k] + hy * poly[sy, k] > 0.0:
+            inside = False
+            break
+    if inside:  # the line misses the polygon: nothing to copy
+        return src, n
+    ox = 2 - sx
+    oy = ox + 1
     m = 0
-    jx = px[n - 1]
-    jy = py[n - 1]
+    jx = poly[sx, n - 1]
+    jy = poly[sy, n - 1]
     fj = h0 + hx * jx + hy * jy
     for k in range(n):
-        kx = px[k]
-        ky = py[k]
+        kx = poly[sx, k]
+        ky = poly[sy, k]
         fk = h0 + hx * kx + hy * ky
         if (fk <= 0.0) != (fj <= 0.0):
             t = fj / (fj - fk)  # opposite sides: no cancellation, |t| <= 1
-            ox[m] = jx + t * (kx - jx)
-            oy[m] = jy + t * (ky - jy)
+            poly[ox, m] = jx + t * (kx - jx)
+            poly[oy, m] = jy + t * (ky - jy)
             m += 1
         if fk <= 0.0:
-            ox[m] = kx
-            oy[m] = ky
+            poly[ox, m] = kx
+            poly[oy, m] = ky
             m += 1
         jx = kx
         jy = ky
         fj = fk
-    return m
+    return 1 - src, m
 
 
 @kernel
-def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start, k0, k1, fl, fb):
+def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start, k0, k1, fl, fb,
+                     poly):
     """Strict mode: a conservative outline, in the heading frame q = R(-theta) u, of where eligible
-    records can lie. Returns the number of half-planes written to fl (rows hx, hy, h0: a record is
-    surely ineligible when h0 + hx*qx + hy*qy > 0) and fills fb with a q box (x0, x1, y0, y1) holding
-    every eligible record of buckets k0..k1; returns -1 when no record there can be eligible.
+    records can lie. Fills fb with a q box (x0, x1, y0, y1) holding every eligible record of buckets
+    k0..k1 and returns the number of half-planes written to fl (rows hx, hy, h0: a record is surely
+    ineligible when h0 + hx*qx + hy*qy > 0), keeping only lines that cut that box (the others cannot
+    reject anything inside it); returns -1 when no record there can be eligible.
 
     Each half-plane is relaxed by 1e-9 of its own scale, about 1e7 times the rounding that separates
     these tests from `_allowed`, so they never reject a record `_allowed` accepts.
@@ -385,8 +410,7 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket
     y1 = min(y1, rad)
     if not (x0 <= x1 and y0 <= y1):
         return -1
-    cap = 4 * (8 + nf)
-    poly = np.empty((4, cap))
+    cap = poly.shape[1]
     poly[0, 0] = x0
     poly[1, 0] = y0
     poly[0, 1] = x1
@@ -409,8 +433,7 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket
             hx = fl[j - 4, 0]
             hy = fl[j - 4, 1]
             h0 = fl[j - 4, 2]
-        cnt = _clip(poly[2 * src], poly[2 * src + 1], cnt, hx, hy, h0, poly[2 - 2 * src], poly[3 - 2 * src])
-        src = 1 - src
+        src, cnt = _clip(poly, src, cnt, hx, hy, h0)
         if cnt == 0:
             return -1
     x0 = np.inf
@@ -423,249 +446,417 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket
         y0 = min(y0, poly[2 * src + 1, t])
         y1 = max(y1, poly[2 * src + 1, t])
     pad = _FEAS_REL * rad
-    fb[0] = x0 - pad
-    fb[1] = x1 + pad
-    fb[2] = y0 - pad
-    fb[3] = y1 + pad
-    return nf
-
-
-@kernel
-def _node_bound(box, m, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb, vmax, fl, nf, fb):
-    # Lower bound of the energy of every record in node m; inf exactly when no record in the node can
-    # be eligible (speed limit, or the box lies outside the feasible region of `_feasible_region`).
-    # Takes the whole table and a row: a row view would cost an atomic refcount per call.
-    if box[m, 12] > vmax:
-        return np.inf
-    if box[m, 1] < fb[0] or box[m, 0] > fb[1] or box[m, 3] < fb[2] or box[m, 2] > fb[3]:
-        return np.inf
+    x0 -= pad
+    x1 += pad
+    y0 -= pad
+    y1 += pad
+    fb[0] = x0
+    fb[1] = x1
+    fb[2] = y0
+    fb[3] = y1
+    # Keep the lines some corner of the box violates: a line all four corners satisfy holds on the
+    # whole box, so it can reject neither a record nor a node part inside the box.
+    kept = 0
     for j in range(nf):
         hx = fl[j, 0]
         hy = fl[j, 1]
-        if fl[j, 2] + min(hx * box[m, 0], hx * box[m, 1]) + min(hy * box[m, 2], hy * box[m, 3]) > 0.0:
-            return np.inf
-    ddx = max(box[m, 0] - cx, 0.0, cx - box[m, 1])
-    ddy = max(box[m, 2] - cy, 0.0, cy - box[m, 3])
-    lb = W * (ddx * ddx + ddy * ddy) + C0
-    da = max(box[m, 4] - s, 0.0, s - box[m, 5])
-    lb += w1 * (da * da)
-    if use_dir and not (box[m, 6] <= beta <= box[m, 7]):
-        c_lo = box[m, 8] * cb + box[m, 9] * sb
-        c_hi = box[m, 10] * cb + box[m, 11] * sb
-        lb += w3 * (1.0 - max(c_lo, c_hi))
-    # An overflowing bound must not read as "infeasible": the largest finite value is still a bound.
-    if lb > _BIG:
-        lb = _BIG
-    return lb
+        h0 = fl[j, 2]
+        if h0 + max(hx * x0, hx * x1) + max(hy * y0, hy * y1) > 0.0:
+            fl[kept, 0] = hx
+            fl[kept, 1] = hy
+            fl[kept, 2] = h0
+            kept += 1
+    return kept
 
 
 @kernel
-def _search_agent(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
-                  node_box, b_max, a_max, w, z, strict, vmax, lines, i, nl,
-                  vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
-    """Pruned search for one agent: (best record or -1, theta, energies evaluated, nodes visited)."""
-    theta, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
+def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
+                  node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+                  max_speed, lines, line_count, node_bucket, fl, fb, poly, hl, hm, cand_e, cand_p,
+                  out_vel, out_rec, out_evals, out_visits, work):
+    """Pruned search for agents lo..hi-1: writes out_vel/out_rec, or out_evals/out_visits when `work`.
+
+    One call per block of agents: every array argument of a numba call costs atomic refcounts, so
+    the per-agent and per-node work below is written inline with scalar-only helpers. fl, fb, poly,
+    hl, hm, cand_e, cand_p are scratch buffers; node_bucket maps a node to its bucket.
+
+    Nodes are expanded best-first (least bound first) across all searched buckets, so the search
+    stops as soon as the least open bound exceeds the best energy found. A leaf's records that pass
+    the trigonometry-free filters get their exact energy in ascending order of approximate energy.
+    """
     nb = bucket_start.shape[0] - 1
-    if nb <= 0 or a.shape[0] == 0:
-        return -1, theta, 0, 0
-    k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
+    for i in range(lo, hi):
+        vnx = v_now[i, 0]
+        vny = v_now[i, 1]
+        vpx = v_pref[i, 0]
+        vpy = v_pref[i, 1]
+        dx = nav_dir[i, 0]
+        dy = nav_dir[i, 1]
+        vsx = v_safe[i, 0]
+        vsy = v_safe[i, 1]
+        vgx = v_group[i, 0]
+        vgy = v_group[i, 1]
+        w0 = weights[0]
+        w1 = weights[1]
+        w2 = weights[2]
+        w3 = weights[3]
+        w4 = weights[4]
+        w5 = weights[5]
+        if vgx != vgx or vgy != vgy:  # outside any group: the group term is dropped (as `_pick_weights`)
+            w5 = 0.0
+            vgx = 0.0
+            vgy = 0.0
+        vmax = max_speed[i]
+        nl = line_count[i]
+        theta, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
+        best = np.inf
+        best_r = -1
+        evals = 0
+        visits = 0
+        if nb > 0 and a.shape[0] > 0:
+            k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
+            # Quadratic terms as W*|q - c'|^2 + C0 in the heading frame.
+            ct = math.cos(theta)
+            st = math.sin(theta)
+            W = w0 + w2 + w4 + w5
+            tx = w0 * vnx + w2 * vpx + w4 * vsx + w5 * vgx
+            ty = w0 * vny + w2 * vpy + w4 * vsy + w5 * vgy
+            pp = (w0 * (vnx * vnx + vny * vny) + w2 * (vpx * vpx + vpy * vpy)
+                  + w4 * (vsx * vsx + vsy * vsy) + w5 * (vgx * vgx + vgy * vgy))
+            cx = 0.0
+            cy = 0.0
+            C0 = 0.0
+            if W > 0.0:
+                gx = tx / W
+                gy = ty / W
+                C0 = pp - W * (gx * gx + gy * gy)
+                cx = ct * gx + st * gy
+                cy = -st * gx + ct * gy
+            use_dir = dn > 0.0 and w3 > 0.0
+            beta = 0.0
+            cb = 1.0
+            sb = 0.0
+            if use_dir:
+                ddx = ct * dx + st * dy
+                ddy = -st * dx + ct * dy
+                beta = math.atan2(ddy, ddx)
+                cb = ddx / dn
+                sb = ddy / dn
+            # Rounding in energies and bounds is a few ulps of this scale; the margin is ~1e7 times wider.
+            nv = math.sqrt(vnx * vnx + vny * vny)
+            npf = math.sqrt(vpx * vpx + vpy * vpy)
+            nsf = math.sqrt(vsx * vsx + vsy * vsy)
+            ngr = math.sqrt(vgx * vgx + vgy * vgy)
+            scale = (w0 * (nv + b_max) ** 2 + w2 * (npf + b_max) ** 2 + w4 * (nsf + b_max) ** 2
+                     + w5 * (ngr + b_max) ** 2 + w1 * (a_max + s) ** 2 + 2.0 * w3)
+            margin = _MARGIN_REL * scale
+            if not (math.isfinite(margin) and math.isfinite(C0) and math.isfinite(cx) and math.isfinite(cy)):
+                r0 = bucket_start[k0]
+                r1 = bucket_start[k1 + 1]
+                ws = weights.copy()  # rare path: the allocation does not matter
+                ws[5] = w5
+                best_r = _scan_agent(a, b, phi, r0, r1, theta, s, dn, ws, vmax, strict, lines, i, nl,
+                                     vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
+                evals = r1 - r0
+                k1 = k0 - 1  # nothing left to search
+                nf = 0
+            else:
+                # Where eligible records can lie (strict mode); nothing to search when nowhere.
+                nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start,
+                                      k0, k1, fl, fb, poly)
+                if nf < 0:
+                    k1 = k0 - 1
+                    nf = 0
+            fx0 = fb[0]
+            fx1 = fb[1]
+            fy0 = fb[2]
+            fy1 = fb[3]
+            # Lines with c on their wrong side first: the node bound measures the distance to those.
+            nvc = 0
+            for j in range(nf):
+                if fl[j, 2] + fl[j, 0] * cx + fl[j, 1] * cy > 0.0:
+                    for col in range(3):
+                        tmp = fl[nvc, col]
+                        fl[nvc, col] = fl[j, col]
+                        fl[j, col] = tmp
+                    nvc += 1
+            pad = _FEAS_REL * (b_max + abs(cx) + abs(cy))
 
-    # Quadratic terms as W*|q - c'|^2 + C0 in the heading frame.
-    ct = math.cos(theta)
-    st = math.sin(theta)
-    W = w[0] + w[2] + w[4] + w[5]
-    tx = w[0] * vnx + w[2] * vpx + w[4] * vsx + w[5] * vgx
-    ty = w[0] * vny + w[2] * vpy + w[4] * vsy + w[5] * vgy
-    pp = (w[0] * (vnx * vnx + vny * vny) + w[2] * (vpx * vpx + vpy * vpy)
-          + w[4] * (vsx * vsx + vsy * vsy) + w[5] * (vgx * vgx + vgy * vgy))
-    cx = 0.0
-    cy = 0.0
-    C0 = 0.0
-    if W > 0.0:
-        gx = tx / W
-        gy = ty / W
-        C0 = pp - W * (gx * gx + gy * gy)
-        cx = ct * gx + st * gy
-        cy = -st * gx + ct * gy
-    use_dir = dn > 0.0 and w[3] > 0.0
-    beta = 0.0
-    cb = 1.0
-    sb = 0.0
-    if use_dir:
-        ddx = ct * dx + st * dy
-        ddy = -st * dx + ct * dy
-        beta = math.atan2(ddy, ddx)
-        cb = ddx / dn
-        sb = ddy / dn
-    # Rounding in energies and bounds is a few ulps of this scale; the margin is ~1e7 times wider.
-    nv = math.sqrt(vnx * vnx + vny * vny)
-    npf = math.sqrt(vpx * vpx + vpy * vpy)
-    nsf = math.sqrt(vsx * vsx + vsy * vsy)
-    ngr = math.sqrt(vgx * vgx + vgy * vgy)
-    scale = (w[0] * (nv + b_max) ** 2 + w[2] * (npf + b_max) ** 2 + w[4] * (nsf + b_max) ** 2
-             + w[5] * (ngr + b_max) ** 2 + w[1] * (a_max + s) ** 2 + 2.0 * w[3])
-    margin = _MARGIN_REL * scale
-    r0 = bucket_start[k0]
-    r1 = bucket_start[k1 + 1]
-    if not (math.isfinite(margin) and math.isfinite(C0) and math.isfinite(cx) and math.isfinite(cy)):
-        best_r = _scan_agent(a, b, phi, r0, r1, theta, s, dn, w, vmax, strict, lines, i, nl,
-                             vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
-        return best_r, theta, r1 - r0, 0
-
-    # Where eligible records can lie (strict mode); nothing to search when nowhere.
-    fl = np.empty((max(nl, 1), 3))
-    fb = np.empty(4)
-    nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start, k0, k1,
-                          fl, fb)
-    if nf < 0:
-        return -1, theta, 0, 0
-
-    # Buckets best-first by the bound of their root node.
-    nk = k1 - k0 + 1
-    order = np.empty(nk, np.int64)
-    order_lb = np.empty(nk)
-    for t in range(nk):
-        k = k0 + t
-        lb = np.inf
-        if bucket_node_start[k + 1] > bucket_node_start[k]:
-            lb = _node_bound(node_box, bucket_node_start[k], cx, cy, W, C0, w[1], s, w[3], use_dir,
-                             beta, cb, sb, vmax, fl, nf, fb)
-        u = t
-        while u > 0 and order_lb[u - 1] > lb:
-            order[u] = order[u - 1]
-            order_lb[u] = order_lb[u - 1]
-            u -= 1
-        order[u] = k
-        order_lb[u] = lb
-
-    best = np.inf
-    best_r = -1
-    evals = 0
-    visits = 0
-    stack = np.empty(_STACK, np.int64)
-    stack_lb = np.empty(_STACK)
-    w1 = w[1]
-    w3 = w[3]
-    fx0 = fb[0]
-    fx1 = fb[1]
-    fy0 = fb[2]
-    fy1 = fb[3]
-    for t in range(nk):
-        # inf: empty bucket or no eligible record (all later ones too, the order is ascending)
-        if order_lb[t] == np.inf or order_lb[t] > best + margin:
-            break
-        k = order[t]
-        base = bucket_node_start[k]
-        nodes = bucket_node_start[k + 1] - base
-        stack[0] = 0
-        stack_lb[0] = order_lb[t]
-        sp = 1
-        while sp > 0:
-            sp -= 1
-            j = stack[sp]
-            if stack_lb[sp] > best + margin:
-                continue
-            visits += 1
-            c1 = 2 * j + 1
-            if c1 < nodes:
-                lb1 = _node_bound(node_box, base + c1, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb, vmax,
-                                  fl, nf, fb)
-                lb2 = _node_bound(node_box, base + c1 + 1, cx, cy, W, C0, w1, s, w3, use_dir, beta, cb, sb,
-                                  vmax, fl, nf, fb)
-                # Push the farther child first so the nearer one is explored first; drop infeasible ones.
-                if lb1 <= lb2:
-                    if lb2 != np.inf:
-                        stack[sp] = c1 + 1
-                        stack_lb[sp] = lb2
-                        sp += 1
-                    if lb1 != np.inf:
-                        stack[sp] = c1
-                        stack_lb[sp] = lb1
-                        sp += 1
+            size = 0
+            roots = True
+            base = 0
+            c1 = 0
+            while True:
+                if roots:
+                    cnt = k1 - k0 + 1
                 else:
-                    if lb1 != np.inf:
-                        stack[sp] = c1
-                        stack_lb[sp] = lb1
-                        sp += 1
-                    if lb2 != np.inf:
-                        stack[sp] = c1 + 1
-                        stack_lb[sp] = lb2
-                        sp += 1
-                continue
-            for p in range(node_range[base + j, 0], node_range[base + j, 1]):
-                if rec_t[p, 5] > vmax:
-                    continue
-                # The energy rewritten in the heading frame, without trigonometry: equal to `energy`
-                # up to rounding (far below margin), so it only lets through near-best records.
-                qx = rec_t[p, 0]
-                qy = rec_t[p, 1]
-                ex = qx - cx
-                ey = qy - cy
-                da = rec_t[p, 2] - s
-                approx = W * (ex * ex + ey * ey) + C0 + w1 * (da * da)
-                if use_dir:
-                    approx += w3 * (1.0 - (rec_t[p, 3] * cb + rec_t[p, 4] * sb))
-                if approx > best + margin:
-                    continue
-                # Surely ineligible (relaxed half-planes): skip before any trigonometry.
-                if qx < fx0 or qx > fx1 or qy < fy0 or qy > fy1:
-                    continue
-                out = False
-                for jj in range(nf):
-                    if fl[jj, 2] + fl[jj, 0] * qx + fl[jj, 1] * qy > 0.0:
-                        out = True
+                    if size == 0:
                         break
-                if out:
-                    continue
-                r = perm[p]
-                evals += 1
-                e = energy(a[r], b[r], phi[r], theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
-                if e != e:
-                    continue
-                if best_r >= 0 and not (e < best or (e == best and r < best_r)):
-                    continue
-                if strict:
-                    ux, uy = record_velocity(b[r], phi[r], theta)
-                    if not _allowed(ux, uy, strict, lines, i, nl):
+                    # pop the least bound from the heap
+                    lb = hl[0]
+                    m = hm[0]
+                    size -= 1
+                    if size > 0:
+                        xl = hl[size]
+                        xm = hm[size]
+                        u = 0
+                        while True:
+                            c = 2 * u + 1
+                            if c >= size:
+                                break
+                            if c + 1 < size and hl[c + 1] < hl[c]:
+                                c += 1
+                            if hl[c] >= xl:
+                                break
+                            hl[u] = hl[c]
+                            hm[u] = hm[c]
+                            u = c
+                        hl[u] = xl
+                        hm[u] = xm
+                    if lb > best + margin:
+                        break  # every open node's bound is at least this one
+                    visits += 1
+                    k = node_bucket[m]
+                    base = bucket_node_start[k]
+                    c1 = 2 * (m - base) + 1
+                    if c1 >= bucket_node_start[k + 1] - base:
+                        # Leaf: trigonometry-free filters first, then exact energies, least approximate first.
+                        nc = 0
+                        for p in range(node_range[m, 0], node_range[m, 1]):
+                            if rec_t[p, 5] > vmax:
+                                continue
+                            # The energy in the heading frame: equal to the exact one up to rounding
+                            # (far below margin), so it only lets through near-best records.
+                            qx = rec_t[p, 0]
+                            qy = rec_t[p, 1]
+                            ex = qx - cx
+                            ey = qy - cy
+                            da = rec_t[p, 2] - s
+                            approx = W * (ex * ex + ey * ey) + C0 + w1 * (da * da)
+                            if use_dir:
+                                approx += w3 * (1.0 - (rec_t[p, 3] * cb + rec_t[p, 4] * sb))
+                            if approx > best + margin:
+                                continue
+                            # Surely ineligible (relaxed half-planes): skip before any trigonometry.
+                            if qx < fx0 or qx > fx1 or qy < fy0 or qy > fy1:
+                                continue
+                            out = False
+                            for jj in range(nf):
+                                if fl[jj, 2] + fl[jj, 0] * qx + fl[jj, 1] * qy > 0.0:
+                                    out = True
+                                    break
+                            if out:
+                                continue
+                            cand_e[nc] = approx
+                            cand_p[nc] = p
+                            nc += 1
+                        while nc > 0:
+                            t = 0
+                            for u in range(1, nc):
+                                if cand_e[u] < cand_e[t]:
+                                    t = u
+                            if cand_e[t] > best + margin:
+                                break
+                            p = cand_p[t]
+                            nc -= 1
+                            cand_e[t] = cand_e[nc]
+                            cand_p[t] = cand_p[nc]
+                            r = perm[p]
+                            evals += 1
+                            e, ux, uy = _energy_uv(a[r], b[r], phi[r], theta, s, dn, w0, w1, w2, w3, w4, w5,
+                                                   vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
+                            if e != e:
+                                continue
+                            if best_r >= 0 and not (e < best or (e == best and r < best_r)):
+                                continue
+                            if strict:  # the contract's eligibility test, as `_allowed`
+                                ok = True
+                                for j in range(nl):
+                                    if (lines[i, j, 2] * (lines[i, j, 1] - uy)
+                                            - lines[i, j, 3] * (lines[i, j, 0] - ux) > LINE_EPS):
+                                        ok = False
+                                        break
+                                if not ok:
+                                    continue
+                            best = e
+                            best_r = r
                         continue
-                best = e
-                best_r = r
-    return best_r, theta, evals, visits
+                    cnt = 2
+                for t in range(cnt):
+                    if roots:
+                        k = k0 + t
+                        if bucket_node_start[k + 1] == bucket_node_start[k]:
+                            continue
+                        mc = bucket_node_start[k]
+                    else:
+                        mc = base + c1 + t
+                    # Lower bound of the energy of every record in node mc; skip the node when no
+                    # record in it can be eligible (speed limit, feasible box, one relaxed line).
+                    if node_box[mc, 12] > vmax:
+                        continue
+                    x0 = max(node_box[mc, 0], fx0)  # only the part inside the feasible box counts
+                    x1 = min(node_box[mc, 1], fx1)
+                    y0 = max(node_box[mc, 2], fy0)
+                    y1 = min(node_box[mc, 3], fy1)
+                    if not (x0 <= x1 and y0 <= y1):
+                        continue
+                    out = False
+                    for j in range(nf):
+                        hx = fl[j, 0]
+                        hy = fl[j, 1]
+                        if fl[j, 2] + min(hx * x0, hx * x1) + min(hy * y0, hy * y1) > 0.0:
+                            out = True
+                            break
+                    if out:
+                        continue
+                    ddx = max(x0 - cx, 0.0, cx - x1)
+                    ddy = max(y0 - cy, 0.0, cy - y1)
+                    d2 = ddx * ddx + ddy * ddy
+                    # Lines 0..nvc-1 put c on their wrong side: where the box's nearest point to c is
+                    # beyond such a line, the nearest eligible point lies on the line's part inside
+                    # the box. The box is widened by `pad` (far above rounding) so rounding can only
+                    # lower this bound; degenerate cases just keep the box distance.
+                    bx0 = x0 - pad
+                    bx1 = x1 + pad
+                    by0 = y0 - pad
+                    by1 = y1 + pad
+                    px = min(max(cx, bx0), bx1)
+                    py = min(max(cy, by0), by1)
+                    for j in range(nvc):
+                        hx = fl[j, 0]
+                        hy = fl[j, 1]
+                        h0 = fl[j, 2]
+                        if h0 + hx * px + hy * py <= 0.0:
+                            continue
+                        hh = hx * hx + hy * hy
+                        hc = h0 + hx * cx + hy * cy
+                        if not (hh > 0.0 and hc > 0.0):
+                            continue
+                        f = hc / hh
+                        lx = cx - f * hx  # foot of c on the line, which runs along (-hy, hx)
+                        ly = cy - f * hy
+                        tlo = -np.inf
+                        thi = np.inf
+                        if hy != 0.0:
+                            ta = (lx - bx0) / hy
+                            tb = (lx - bx1) / hy
+                            tlo = max(tlo, min(ta, tb))
+                            thi = min(thi, max(ta, tb))
+                        elif not (bx0 <= lx <= bx1):
+                            continue
+                        if hx != 0.0:
+                            ta = (by0 - ly) / hx
+                            tb = (by1 - ly) / hx
+                            tlo = max(tlo, min(ta, tb))
+                            thi = min(thi, max(ta, tb))
+                        elif not (by0 <= ly <= by1):
+                            continue
+                        if not tlo <= thi:
+                            continue
+                        tt = min(max(0.0, tlo), thi)
+                        dl = (f * f + tt * tt) * hh
+                        if dl > d2:
+                            d2 = dl
+                    lbc = W * d2 + C0
+                    da = max(node_box[mc, 4] - s, 0.0, s - node_box[mc, 5])
+                    lbc += w1 * (da * da)
+                    if use_dir and not (node_box[mc, 6] <= beta <= node_box[mc, 7]):
+                        c_lo = node_box[mc, 8] * cb + node_box[mc, 9] * sb
+                        c_hi = node_box[mc, 10] * cb + node_box[mc, 11] * sb
+                        lbc += w3 * (1.0 - max(c_lo, c_hi))
+                    if lbc > _BIG:  # overflow: the largest finite value is still a bound
+                        lbc = _BIG
+                    if lbc > best + margin:
+                        continue
+                    # push (lbc, mc) on the heap (sized to hold every node of a window)
+                    u = size
+                    while u > 0:
+                        pu = (u - 1) >> 1
+                        if hl[pu] <= lbc:
+                            break
+                        hl[u] = hl[pu]
+                        hm[u] = hm[pu]
+                        u = pu
+                    hl[u] = lbc
+                    hm[u] = mc
+                    size += 1
+                roots = False
+        if work:
+            out_evals[i] = evals
+            out_visits[i] = visits
+        else:
+            _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec)
+
+
+@kernel
+def _window_nodes(bucket_node_start, z):
+    """Most tree nodes any agent's bucket window k-z..k+z holds: the size of the search heap."""
+    nb = bucket_node_start.shape[0] - 1
+    most = 1
+    for k in range(nb):
+        lo = max(0, k - z)
+        hi = min(nb - 1, k + z)
+        most = max(most, bucket_node_start[hi + 1] - bucket_node_start[lo])
+    return most
+
+
+@kernel
+def _node_buckets(bucket_node_start, node_range):
+    """(bucket of each node, most records in one node)."""
+    nb = bucket_node_start.shape[0] - 1
+    out = np.empty(max(bucket_node_start[nb], 1), np.int32)
+    most = 1
+    for k in range(nb):
+        for m in range(bucket_node_start[k], bucket_node_start[k + 1]):
+            out[m] = k
+            most = max(most, node_range[m, 1] - node_range[m, 0])
+    return out, most
 
 
 @parallel_kernel
+def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
+                   node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+                   max_speed, lines, line_count, out_vel, out_rec, out_evals, out_visits, work):
+    n = v_now.shape[0]
+    node_bucket, most = _node_buckets(bucket_node_start, node_range)
+    hcap = _window_nodes(bucket_node_start, z)
+    nl_max = max(lines.shape[1], 1)
+    nblocks = (n + _BLOCK - 1) // _BLOCK
+    for blk in numba.prange(nblocks):
+        # Scratch shared by the block's agents: one allocation each per 64 agents, not per agent.
+        fl = np.empty((nl_max, 3))
+        fb = np.empty(4)
+        poly = np.empty((4, 4 * (8 + nl_max)))
+        hl = np.empty(hcap)
+        hm = np.empty(hcap, np.int64)
+        cand_e = np.empty(most)
+        cand_p = np.empty(most, np.int64)
+        _search_block(blk * _BLOCK, min((blk + 1) * _BLOCK, n), a, b, phi, bucket_start, bucket_min_a, perm,
+                      rec_t, bucket_node_start, node_range, node_box, b_max, a_max, weights, z, strict, v_now,
+                      v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, node_bucket, fl, fb, poly,
+                      hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work)
+
+
+@kernel  # the prange over agent blocks is in `_pruned_blocks`
 def choose_pruned(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
                   node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                   max_speed, lines, line_count, out_vel, out_rec):
     """Indexed search; returns exactly the record `choose_full` returns. Writes row i only."""
-    n = v_now.shape[0]
-    w_solo = _solo_weights(weights)
-    for i in numba.prange(n):
-        w, vgx, vgy = _pick_weights(weights, w_solo, v_group[i, 0], v_group[i, 1])
-        best_r, theta, _ev, _vis = _search_agent(
-            a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range, node_box,
-            b_max, a_max, w, z, strict, max_speed[i], lines, i, line_count[i],
-            v_now[i, 0], v_now[i, 1], v_pref[i, 0], v_pref[i, 1], nav_dir[i, 0], nav_dir[i, 1],
-            v_safe[i, 0], v_safe[i, 1], vgx, vgy)
-        _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec)
+    dummy = np.empty(1, np.int64)
+    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
+                   node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+                   max_speed, lines, line_count, out_vel, out_rec, dummy, dummy, False)
 
 
-@parallel_kernel
+@kernel  # the prange over agent blocks is in `_pruned_blocks`
 def pruned_work(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
                 node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                 max_speed, lines, line_count, out_evals, out_visits):
     """Diagnostics for benchmarks: energies evaluated and tree nodes visited per agent."""
-    n = v_now.shape[0]
-    w_solo = _solo_weights(weights)
-    for i in numba.prange(n):
-        w, vgx, vgy = _pick_weights(weights, w_solo, v_group[i, 0], v_group[i, 1])
-        _r, _th, ev, vis = _search_agent(
-            a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range, node_box,
-            b_max, a_max, w, z, strict, max_speed[i], lines, i, line_count[i],
-            v_now[i, 0], v_now[i, 1], v_pref[i, 0], v_pref[i, 1], nav_dir[i, 0], nav_dir[i, 1],
-            v_safe[i, 0], v_safe[i, 1], vgx, vgy)
-        out_evals[i] = ev
-        out_visits[i] = vis
+    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
+                   node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+                   max_speed, lines, line_count, np.empty((1, 2)), np.empty(1, np.int32), out_evals,
+                   out_visits, True)
 
 
 # ---------------------------------------------------------------------------------------------

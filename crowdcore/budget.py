@@ -213,36 +213,12 @@ def fit_exponent(ns, ms):
 # ------------------------------------------------------------------------------------------ reference ratios
 
 def choose_inputs(world):
-    """The inputs the world's choose phase sees this frame, computed with the world's own kernels
-    exactly as World.step computes them (index, sense, navigate, avoid); the world is not changed."""
-    from . import phases
-    from .orca import orca_phase
-    from .social_force import social_force_phase, SocialForceParams
-    from .spatial import knn_phase
-
-    a, p = world.agents, world.params
-    n = len(a["ids"])
-    pos, vel = a["pos"], a["vel"]
-    start, items = world._index_agents(pos)
-    k = p.neighbours
-    nbr, nbr_count = np.empty((n, k), np.int32), np.empty(n, np.int32)
-    knn_phase(pos, a["ids"], start, items, *world._hash.args, p.sense_radius, nbr, nbr_count)
-    nav = world._cache.nav
-    pref_vel, nav_dir, v_group = np.empty((n, 2)), np.empty((n, 2)), np.empty((n, 2))
-    phases.navigate_phase(pos, a["pref_speed"], a["target"], nav.dir, nav.ox, nav.oy, nav.h, nav.nx, nav.ny,
-                          pref_vel, nav_dir)
-    phases.group_pull_phase(pos, a["group"], world._group_centres(), pref_vel, a["pref_speed"], v_group)
-    c = world._cache
-    max_speed = a["pref_speed"] * p.max_speed_factor
-    lines, line_count, v_safe = np.empty((n, k + 16, 4)), np.zeros(n, np.int32), np.empty((n, 2))
-    if p.avoidance == "orca":
-        orca_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
-                   c.wall_items, *c.wall_grid.args, p.orca_tau, p.orca_tau_walls, p.dt, lines, line_count, v_safe)
-    else:
-        social_force_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
-                           c.wall_items, *c.wall_grid.args, *SocialForceParams().args(), p.dt, line_count, v_safe)
-    return (p.weight_vector(), p.search_width, p.strict, vel, pref_vel, nav_dir, v_safe, v_group, max_speed,
-            lines, line_count)
+    """The inputs the world's choose phase sees this frame, computed by the world's own phases
+    (index, sense, navigate, avoid) exactly as World.step does; the world is not changed."""
+    f = world._before_choice(world.params.dt, {})
+    p = world.params
+    return (p.weight_vector(), f["z"], p.strict, f["vel"], f["pref_vel"], f["nav_dir"], f["v_safe"], f["v_group"],
+            f["max_speed"], f["lines"], f["line_count"])
 
 
 def _run_choose(world, kernel_fn, inputs):

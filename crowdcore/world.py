@@ -303,52 +303,13 @@ class World:
         n = len(a["ids"])
         t = time.perf_counter
         ms = {}
-        t0 = t()
-
-        pos, vel = a["pos"], a["vel"]
-        start, items = self._index_agents(pos)
-        t1 = t(); ms["index"] = t1 - t0
-
-        z, k = p.search_width, p.neighbours
-        if p.budget_ms > 0:  # a pure function of n and stored numbers: replays make the same choice
-            z, k = plan(n, p.budget_ms, p.budget_coeffs, z_max=z, k_min=min(4, k), k_max=k)
-        nbr = np.empty((n, k), np.int32)
-        nbr_count = np.empty(n, np.int32)
-        knn_phase(pos, a["ids"], start, items, *self._hash.args, p.sense_radius, nbr, nbr_count)
-        t2 = t(); ms["sense"] = t2 - t1
-
-        nav = self._cache.nav
-        pref_vel = np.empty((n, 2))
-        nav_dir = np.empty((n, 2))
-        phases.navigate_phase(pos, a["pref_speed"], a["target"], nav.dir, nav.ox, nav.oy, nav.h, nav.nx, nav.ny,
-                              pref_vel, nav_dir)
-        if p.headway_time > 0 or p.keep_right > 0 or p.jostle > 0:
-            fg = self._flow_grid
-            flow = np.empty((fg.ny, fg.nx, 3))
-            phases.flow_grid(pos, vel, *fg.args, flow)
-            phases.conventions_phase(pos, vel, a["radius"], a["ids"], nav_dir, nbr, nbr_count, p.headway_time,
-                                     math.cos(math.radians(p.headway_cone)), math.radians(p.keep_right),
-                                     flow, fg.ox, fg.oy, fg.cell, p.look_ahead, math.radians(p.jostle),
-                                     self.seed & 0xFFFFFFFFFFFFFFFF, self.frame, pref_vel)
-        v_group = np.empty((n, 2))
-        phases.group_pull_phase(pos, a["group"], self._group_centres(), pref_vel, a["pref_speed"], v_group)
-        t3 = t(); ms["navigate"] = t3 - t2
-
+        f = self._before_choice(dt, ms)
+        pos, vel, nbr, nbr_count, z, k = f["pos"], f["vel"], f["nbr"], f["nbr_count"], f["z"], f["k"]
+        pref_vel, nav_dir, v_safe, v_group = f["pref_vel"], f["nav_dir"], f["v_safe"], f["v_group"]
+        max_speed, lines, line_count, start, items = f["max_speed"], f["lines"], f["line_count"], f["start"], f["items"]
         c = self._cache
         wg = c.wall_grid
-        max_speed = a["pref_speed"] * p.max_speed_factor
-        cap = k + 16
-        lines = np.empty((n, cap, 4))
-        line_count = np.zeros(n, np.int32)
-        v_safe = np.empty((n, 2))
-        if p.avoidance == "orca":
-            orca_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
-                       c.wall_items, *wg.args, p.orca_tau, p.orca_tau_walls, dt, lines, line_count, v_safe)
-        else:
-            sf = SocialForceParams()
-            social_force_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
-                               c.wall_items, *wg.args, *sf.args(), dt, line_count, v_safe)
-        t4 = t(); ms["avoid"] = t4 - t3
+        t4 = t()
 
         new_vel = np.empty((n, 2))
         rec = np.empty(n, np.int32)
@@ -399,6 +360,64 @@ class World:
         self.phase_ms = {k: v * 1e3 for k, v in ms.items()}
         self._log("step", dt=dt)
         return self.stats
+
+    def _before_choice(self, dt, ms):
+        """Phases index, sense, navigate and avoid: everything the choice reads, in fresh buffers.
+        Fills ms (seconds per phase); changes nothing in the world."""
+        a = self.agents
+        p = self.params
+        n = len(a["ids"])
+        t = time.perf_counter
+        t0 = t()
+
+        pos, vel = a["pos"], a["vel"]
+        start, items = self._index_agents(pos)
+        t1 = t(); ms["index"] = t1 - t0
+
+        z, k = p.search_width, p.neighbours
+        if p.budget_ms > 0:  # a pure function of n and stored numbers: replays make the same choice
+            z, k = plan(n, p.budget_ms, p.budget_coeffs, z_max=z, k_min=min(4, k), k_max=k)
+        nbr = np.empty((n, k), np.int32)
+        nbr_count = np.empty(n, np.int32)
+        knn_phase(pos, a["ids"], start, items, *self._hash.args, p.sense_radius, nbr, nbr_count)
+        t2 = t(); ms["sense"] = t2 - t1
+
+        nav = self._cache.nav
+        pref_vel = np.empty((n, 2))
+        nav_dir = np.empty((n, 2))
+        phases.navigate_phase(pos, a["pref_speed"], a["target"], nav.dir, nav.ox, nav.oy, nav.h, nav.nx, nav.ny,
+                              pref_vel, nav_dir)
+        if p.headway_time > 0 or p.keep_right > 0 or p.jostle > 0:
+            fg = self._flow_grid
+            flow = np.empty((fg.ny, fg.nx, 3))
+            phases.flow_grid(pos, vel, *fg.args, flow)
+            phases.conventions_phase(pos, vel, a["radius"], a["ids"], nav_dir, nbr, nbr_count, p.headway_time,
+                                     math.cos(math.radians(p.headway_cone)), math.radians(p.keep_right),
+                                     flow, fg.ox, fg.oy, fg.cell, p.look_ahead, math.radians(p.jostle),
+                                     self.seed & 0xFFFFFFFFFFFFFFFF, self.frame, pref_vel)
+        v_group = np.empty((n, 2))
+        phases.group_pull_phase(pos, a["group"], self._group_centres(), pref_vel, a["pref_speed"], v_group)
+        t3 = t(); ms["navigate"] = t3 - t2
+
+        c = self._cache
+        wg = c.wall_grid
+        max_speed = a["pref_speed"] * p.max_speed_factor
+        cap = k + 16
+        lines = np.empty((n, cap, 4))
+        line_count = np.zeros(n, np.int32)
+        v_safe = np.empty((n, 2))
+        if p.avoidance == "orca":
+            orca_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
+                       c.wall_items, *wg.args, p.orca_tau, p.orca_tau_walls, dt, lines, line_count, v_safe)
+        else:
+            sf = SocialForceParams()
+            social_force_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
+                               c.wall_items, *wg.args, *sf.args(), dt, line_count, v_safe)
+        t4 = t(); ms["avoid"] = t4 - t3
+
+        return {"pos": pos, "vel": vel, "nbr": nbr, "nbr_count": nbr_count, "z": z, "k": k, "pref_vel": pref_vel,
+                "nav_dir": nav_dir, "v_safe": v_safe, "v_group": v_group, "max_speed": max_speed, "lines": lines,
+                "line_count": line_count, "start": start, "items": items}
 
     def _group_centres(self):
         g = self.agents["group"]

@@ -17,7 +17,6 @@ import functools
 import hashlib
 import operator
 import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterable
@@ -25,6 +24,7 @@ from typing import Iterable
 import msgpack
 import numpy as np
 
+from ._files import atomic_write
 from crowdcore.errors import RecordSetError, TrajectoryError
 
 FORMAT_TAG = "crowdcore-records"
@@ -384,7 +384,7 @@ class RecordSet:
 
     def save(self, path) -> None:
         """Write atomically: a temp file in the same folder, then os.replace; on failure the old file stays."""
-        _atomic_write(Path(path), self.to_bytes())
+        atomic_write(path, self.to_bytes())
 
     @classmethod
     def load(cls, path) -> "RecordSet":
@@ -492,27 +492,6 @@ def _decode(obj) -> RecordSet:
     if rs.content_hash != obj["hash"]:
         raise RecordSetError("content hash mismatch: the data is corrupt")
     return rs
-
-
-def _atomic_write(path: Path, data: bytes) -> None:
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        try:  # mkstemp makes 0600 files; keep the old file's mode, else an ordinary 0644
-            mode = path.stat().st_mode & 0o777
-        except OSError:
-            mode = 0o644
-        os.chmod(tmp, mode)
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
 
 
 # ----------------------------------------------------------------------------------------------

@@ -20,11 +20,11 @@ import copy
 import hashlib
 import math
 import os
-import tempfile
 
 import msgpack
 import numpy as np
 
+from ._files import atomic_write  # noqa: F401  (re-exported for callers of snapshot.atomic_write)
 from .errors import CrowdError, SnapshotError
 
 FORMAT = "crowdcore-snapshot"
@@ -479,30 +479,6 @@ def restore(world, data, records=None):
 
 
 # ------------------------------------------------------------------ files
-def atomic_write(path, data):
-    """Write bytes to path via a temp file in the same folder and a rename; the old file survives a failure."""
-    path = os.fspath(path)
-    d = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=d, prefix=f".{os.path.basename(path)}.", suffix=".part")
-    try:
-        try:  # mkstemp makes 0600 files; keep the old file's mode, else an ordinary 0644
-            mode = os.stat(path).st_mode & 0o777
-        except OSError:
-            mode = 0o644
-        os.chmod(tmp, mode)
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-
-
 def read_file(path, limit=None):
     """The bytes of a snapshot file, refusing files above the size limit before reading them."""
     limit = MAX_SNAPSHOT_BYTES if limit is None else limit

@@ -28,7 +28,8 @@ from pathlib import Path
 
 import numpy as np
 
-from crowdcore.records import (DEFAULT_PATH, RecordSet, _atomic_write, extract_records, tracks_from_table)
+from crowdcore._files import atomic_write
+from crowdcore.records import (DEFAULT_PATH, RecordSet, extract_records, tracks_from_table)
 
 FPS = 10.0
 DT = 1.0 / FPS
@@ -120,7 +121,7 @@ def write_csv(path, table, comment: str | None = None, decimals: int = 6) -> Non
         buf.write(f"# {line}\n")
     buf.write("frame,id,x,y\n")
     np.savetxt(buf, arr, fmt=("%d", "%d", f"%.{int(decimals)}f", f"%.{int(decimals)}f"), delimiter=",")
-    _atomic_write(Path(path), buf.getvalue().encode())
+    atomic_write(path, buf.getvalue().encode())
 
 
 def make_record_set(n_walkers: int = DEFAULT_WALKERS, n_frames: int = DEFAULT_FRAMES, seed: int = DEFAULT_SEED,

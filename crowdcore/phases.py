@@ -160,8 +160,9 @@ def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_ti
     """Two walking conventions that shape the preferred velocity (own row only):
 
     - time headway: an agent plans no faster than gap / headway_time, where gap is the surface gap to
-      the nearest neighbour ahead (in the cone around its route) that is not walking towards it. This
-      is what makes speed fall with density.
+      the nearest neighbour ahead (in the cone around its route) that walks the same way (within 60
+      degrees). This is what makes speed fall with density. Standing people and people crossing the
+      path are left to avoidance: counting them let crossing streams wait for each other for ever.
     - keep right: with someone walking towards it ahead (a neighbour, or an opposing mean flow in the
       flow grid up to look_ahead metres along its route), an agent turns its preferred direction by
       keep_right radians clockwise, so opposing streams pass left side to left side and form lanes
@@ -187,11 +188,15 @@ def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_ti
             ahead = dx * ex + dy * ey
             if d == 0.0 or ahead <= 0.0:
                 continue
-            if vel[j, 0] * ex + vel[j, 1] * ey < 0.0:
+            along = vel[j, 0] * ex + vel[j, 1] * ey
+            if along < 0.0:
                 oncoming = True   # anyone ahead walking towards us, not just in the headway cone
                 continue
             if ahead < cos_cone * d:
                 continue
+            vj2 = vel[j, 0] * vel[j, 0] + vel[j, 1] * vel[j, 1]
+            if vj2 <= 0.01 or along * along < 0.25 * vj2:
+                continue          # standing, or crossing our path: avoidance handles it
             if headway_time > 0.0:
                 limit = min(limit, max(0.0, d - radius[i] - radius[j]) / headway_time)
         stuck = False

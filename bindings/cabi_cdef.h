@@ -37,4 +37,7 @@ extern "Python" {
     int32_t cc__py_world_load_snapshot(cc_world, const void *, int64_t);
     int32_t cc__py_world_save_file(cc_world, const char *);
     int32_t cc__py_world_load_file(cc_world, const char *);
+    int32_t cc__py_world_record_start(cc_world, const char *);
+    int32_t cc__py_world_record_stop(cc_world);
+    int32_t cc__py_replay_file(const char *, cc_replay_result *);
 }

@@ -260,3 +260,12 @@ CC_EXPORT int32_t cc_world_save_file(cc_world w, const char *path)
 
 CC_EXPORT int32_t cc_world_load_file(cc_world w, const char *path)
 { CC_ENTER(); return cc__py_world_load_file(w, path); }
+
+CC_EXPORT int32_t cc_world_record_start(cc_world w, const char *path)
+{ CC_ENTER(); return cc__py_world_record_start(w, path); }
+
+CC_EXPORT int32_t cc_world_record_stop(cc_world w)
+{ CC_ENTER(); return cc__py_world_record_stop(w); }
+
+CC_EXPORT int32_t cc_replay_file(const char *path, cc_replay_result *out)
+{ CC_ENTER(); return cc__py_replay_file(path, out); }

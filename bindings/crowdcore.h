@@ -31,7 +31,7 @@ extern "C" {
 
 /* @cdef-begin (this block is also the cffi declaration source: constants, typedefs and structs only) */
 #define CC_ABI_VERSION_MAJOR 1
-#define CC_ABI_VERSION_MINOR 0
+#define CC_ABI_VERSION_MINOR 1
 #define CC_ABI_VERSION_PATCH 0
 
 /* Status codes. */
@@ -113,6 +113,16 @@ typedef struct cc_step_stats {
     int32_t guarded;           /* agents slowed by the contact guard */
     int32_t reserved;
 } cc_step_stats;
+
+/* What cc_replay_file found. */
+typedef struct cc_replay_result {
+    int64_t frames_checked;    /* frames whose state hash matched the recording */
+    int64_t diverged_frame;    /* first frame whose hash differs; -1 if none */
+    int32_t diverged_agent;    /* id of the first differing agent; -1 if none or unknown */
+    int32_t identical;         /* 1 if every recorded frame replayed bit for bit */
+    int32_t truncated;         /* 1 if the file ends inside an entry (a crash mid-run); the prefix was checked */
+    int32_t reserved;
+} cc_replay_result;
 /* @cdef-end */
 
 #if defined(_WIN32)
@@ -169,6 +179,11 @@ CC_API int32_t cc_world_save_snapshot(cc_world w, void *buf, int64_t capacity, i
 CC_API int32_t cc_world_load_snapshot(cc_world w, const void *data, int64_t size);              /* Replace world w's state with a snapshot (w stays the same handle). */
 CC_API int32_t cc_world_save_file(cc_world w, const char *path);                                /* Write a snapshot file atomically (an old file survives a failed write). */
 CC_API int32_t cc_world_load_file(cc_world w, const char *path);                                /* Replace world w's state with a snapshot file. */
+
+/* --- recordings (initial snapshot + every command and step with a state hash, flushed each step) --- */
+CC_API int32_t cc_world_record_start(cc_world w, const char *path);   /* Record w to path from now on (CC_ERR_INVALID if already recording; loading a snapshot into w is refused while recording). */
+CC_API int32_t cc_world_record_stop(cc_world w);                      /* Finish w's recording and close the file (CC_ERR_INVALID if not recording); destroy also stops it. */
+CC_API int32_t cc_replay_file(const char *path, cc_replay_result *out); /* Replay a recording in a private world and check every frame's hash; CC_ERR_SNAPSHOT for a damaged file. */
 
 #ifdef __cplusplus
 }

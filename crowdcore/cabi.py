@@ -125,11 +125,12 @@ class _Fail(Exception):
 
 
 class _Slot:
-    __slots__ = ("world", "gen", "lock", "version", "snap", "step_seconds")
+    __slots__ = ("world", "gen", "lock", "version", "snap", "step_seconds", "recorder")
 
     def __init__(self):
         self.world, self.gen, self.lock = None, 0, threading.Lock()
         self.version, self.snap, self.step_seconds = 0, None, 0.0
+        self.recorder = None
 
 
 _slots = [_Slot()]      # slot 0 is never handed out
@@ -400,6 +401,9 @@ def _bind(ffi, lib):
         if not s.lock.acquire(False):
             raise _Fail(ERR_BUSY, f"world {h:#x}: in use by another thread")
         try:
+            if s.recorder is not None:
+                s.recorder, rec = None, s.recorder
+                rec.close()
             s.world, s.snap = None, None
             s.gen = s.gen % 0xFFFFFFFF + 1     # every old copy of the handle is now stale
             _free.append(h & 0xFFFFFFFF)
@@ -603,8 +607,13 @@ def _bind(ffi, lib):
             raise _Fail(ERR_CAPACITY, f"buffer too small: capacity {cap} bytes, need {len(data)} (written to *size)")
         ffi.memmove(buf, data, len(data))
 
+    def not_recording(s):
+        if s.recorder is not None:
+            raise _Fail(ERR_INVALID, "world is being recorded: stop the recording before loading a snapshot")
+
     @export("world_load_snapshot", mutates=True)
     def world_load_snapshot(s, data, size):
+        not_recording(s)
         s.world = World.from_snapshot(snapshot_bytes(data, size))   # built completely before it replaces
 
     @export("world_save_file")
@@ -613,6 +622,37 @@ def _bind(ffi, lib):
 
     @export("world_load_file", mutates=True)
     def world_load_file(s, path):
+        not_recording(s)
         p = text_arg(path, "path")
         readable_file(p, "snapshot")
         s.world = World.load(p)
+
+    @export("world_record_start")
+    def world_record_start(s, path):
+        from .recording import Recorder
+        if s.recorder is not None:
+            raise _Fail(ERR_INVALID, "world is being recorded already")
+        p = text_arg(path, "path")
+        try:
+            s.recorder = Recorder(s.world, p)
+        except OSError as e:
+            raise _Fail(ERR_IO, f"{p}: cannot write recording ({e.strerror or e})") from None
+
+    @export("world_record_stop")
+    def world_record_stop(s):
+        if s.recorder is None:
+            raise _Fail(ERR_INVALID, "world is not being recorded")
+        s.recorder, rec = None, s.recorder
+        rec.close()
+
+    @export("replay_file", world=False)
+    def replay_file(path, out):
+        from .recording import replay
+        need(out, "out")
+        p = text_arg(path, "path")
+        readable_file(p, "recording")
+        r = replay(p)
+        out.frames_checked = r.frames_checked
+        out.diverged_frame = -1 if r.diverged_at_frame is None else r.diverged_at_frame
+        out.diverged_agent = -1 if r.diverged_agent is None else r.diverged_agent
+        out.identical, out.truncated, out.reserved = int(r.identical), int(bool(r.truncated)), 0

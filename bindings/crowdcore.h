@@ -73,6 +73,7 @@ typedef struct cc_world_def {
     double orca_tau_walls;     /* ORCA horizon for walls (s) */
     double weights[6];         /* energy weights: similarity, consistency, expectation, direction, avoidance, group */
     double bounds[4];          /* xmin, ymin, xmax, ymax to cover at least; all zero = from the content */
+    double budget_ms;          /* > 0: a deterministic governor narrows search width, then K, to fit this step time (ms) */
     int32_t internal_check;    /* set by cc_default_world_def; do not change */
     int32_t reserved;
 } cc_world_def;
@@ -111,6 +112,8 @@ typedef struct cc_step_stats {
     int32_t arrived;           /* agents that arrived */
     int32_t fallbacks;         /* agents that took the collision-free velocity (no record eligible) */
     int32_t guarded;           /* agents slowed by the contact guard */
+    int32_t search_width;      /* search width used in the step (the governor's choice when budget_ms > 0) */
+    int32_t neighbours;        /* neighbour count K used in the step */
     int32_t reserved;
 } cc_step_stats;
 

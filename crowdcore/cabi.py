@@ -304,6 +304,7 @@ def _bind(ffi, lib):
             d.weights[i] = p.weights[k]
         for i in range(4):
             d.bounds[i] = 0.0
+        d.budget_ms = p.budget_ms
         d.internal_check, d.reserved = _WORLD_DEF_CHECK, 0
 
     @export("default_agent_def", world=False)
@@ -321,7 +322,7 @@ def _bind(ffi, lib):
         if d.internal_check != _WORLD_DEF_CHECK:
             raise _Fail(ERR_INVALID, "def: not initialised by cc_default_world_def")
         names = ("dt", "max_dt", "sense_radius", "nav_cell", "clearance", "max_speed_factor", "orca_tau",
-                 "orca_tau_walls")
+                 "orca_tau_walls", "budget_ms")
         for k in names:
             finite(f"def.{k}", getattr(d, k))
         weights = {k: d.weights[i] for i, k in enumerate(WEIGHT_NAMES)}
@@ -549,7 +550,7 @@ def _bind(ffi, lib):
         st = s.world.stats
         out.min_gap = st.get("min_gap", 0.0)
         out.step_seconds = s.step_seconds
-        for k in ("overlaps", "blocked_moves", "arrived", "fallbacks", "guarded"):
+        for k in ("overlaps", "blocked_moves", "arrived", "fallbacks", "guarded", "search_width", "neighbours"):
             setattr(out, k, st.get(k, 0))
         out.reserved = 0
 

@@ -44,6 +44,8 @@ def run_command(args):
         _jit.set_threads(args.threads)
     path = resolve_scene(args.scene)
     world = load_scenario(path)
+    if args.budget_ms is not None:
+        world.set_params(budget_ms=args.budget_ms)
     frames = args.frames or world.default_frames
     start_agents = world.agent_count
     every = max(1, frames // 200)
@@ -89,6 +91,10 @@ def run_command(args):
         "mean_speed_m_s": round(float(np.mean(speeds)), 3) if speeds else 0.0,
         "avoidance": world.params.avoidance,
     }
+    if world.params.budget_ms > 0 and world.stats:
+        summary["budget_ms"] = world.params.budget_ms
+        summary["last_search_width"] = world.stats["search_width"]
+        summary["last_neighbours"] = world.stats["neighbours"]
     if not args.no_pictures:
         os.makedirs(args.out, exist_ok=True)
         stem = os.path.join(args.out, os.path.splitext(os.path.basename(path))[0])
@@ -173,6 +179,8 @@ def build_parser():
     r.add_argument("--dt", type=float, default=None, help="seconds per frame (default: the scenario's params.dt)")
     r.add_argument("--out", default="crowdcore-out", help="folder for the GIF and PNG (default: crowdcore-out)")
     r.add_argument("--threads", type=int, default=0, help="worker threads (default: all cores)")
+    r.add_argument("--budget-ms", type=float, default=None,
+                   help="hold each step within this many ms by narrowing the search (deterministic governor)")
     r.add_argument("--no-pictures", action="store_true", help="skip the GIF and PNG")
     r.add_argument("--keep-going", action="store_true", help="keep stepping after every agent has arrived")
     r.add_argument("--json", action="store_true", help="print the summary as one JSON object")

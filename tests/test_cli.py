@@ -50,3 +50,10 @@ def test_scenes_lists_bundled(capsys):
     out = capsys.readouterr().out
     for name in ("crossing", "corner", "hall", "corridor"):
         assert name in out
+
+
+def test_run_with_a_budget_reports_the_governor_choice(capsys):
+    assert main(["run", "corner", "--frames", "5", "--no-pictures", "--quiet", "--json", "--budget-ms", "0.001"]) == 0
+    summary = json.loads(capsys.readouterr().out.strip().splitlines()[-1])
+    # a budget nothing can meet: the governor drops to the narrowest search it allows
+    assert summary["budget_ms"] == 0.001 and summary["last_search_width"] == 0 and summary["last_neighbours"] == 4

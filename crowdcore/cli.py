@@ -155,7 +155,14 @@ def cabi_command(args):
 
 def verify_command(args):
     from .verify import run_verification
-    report = run_verification(args.out, quick=args.quick, progress=not args.quiet)
+    params = None
+    if args.params:
+        from .scenario import parse_scenario
+        with open(args.params, encoding="utf-8") as f:   # a scenario file: only its [params] table is used
+            params = parse_scenario(f.read(), os.path.dirname(os.path.abspath(args.params)), args.params)["params"]
+        defaults = type(params)().to_dict()
+        params = {k: v for k, v in params.to_dict().items() if v != defaults[k]}
+    report = run_verification(args.out, quick=args.quick, progress=not args.quiet, params=params)
     print(f"wrote {report}")
     print(CAUTION)
     return 0
@@ -218,6 +225,7 @@ def build_parser():
     v = sub.add_parser("verify", help="run the verification suite and write a Markdown report with plots")
     v.add_argument("--out", default="crowdcore-verify", help="report folder (default: crowdcore-verify)")
     v.add_argument("--quick", action="store_true", help="fewer agents and repeats")
+    v.add_argument("--params", default=None, help="verify the [params] of this scenario file instead of the defaults")
     v.add_argument("--quiet", action="store_true")
     v.set_defaults(func=verify_command)
 

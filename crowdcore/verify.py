@@ -35,11 +35,17 @@ def fd_band(rho):
     return np.maximum(np.minimum(w, s) - FD_BAND, 0.0), np.maximum(w, s) + FD_BAND
 
 
+_USER_PARAMS = {}   # the settings under test (run_verification(params=...)); case-specific ones win
+
+
 def _world(seed=1, **params):
     from .world import World
     w = World(seed=seed)
-    if params:
-        w.set_params(**params)
+    merged = {**_USER_PARAMS, **params}
+    if "weights" in _USER_PARAMS and "weights" in params:
+        merged["weights"] = {**_USER_PARAMS["weights"], **params["weights"]}
+    if merged:
+        w.set_params(**merged)
     return w
 
 
@@ -408,15 +414,38 @@ def run_case(key, quick=False, out_dir=None):
     raise KeyError(key)
 
 
-def run_verification(out_dir, quick=False, progress=True):
-    """Run every case, write out_dir/report.md (+ PNG plots); returns the report path."""
+def run_verification(out_dir, quick=False, progress=True, params=None):
+    """Run every case, write out_dir/report.md (+ PNG plots); returns the report path.
+
+    params: World parameters to verify (a dict as in a scenario's [params] table); default: built-in."""
     import matplotlib
     matplotlib.use("Agg")
+    from .params import Params
+    Params.from_dict(dict(params or {}), "params")   # validate before running anything
     os.makedirs(out_dir, exist_ok=True)
+    _USER_PARAMS.clear()
+    _USER_PARAMS.update(params or {})
+    settings = ", ".join(f"{k} = {v!r}" for k, v in sorted((params or {}).items())) or "built-in defaults"
     lines = ["# crowdcore verification report", "", f"> {CAUTION}", "",
-             f"Mode: {'quick' if quick else 'full'}. Markers: [V] seen in a public source, [M] from memory "
-             "(wide band), [D] derived.", ""]
+             f"Mode: {'quick' if quick else 'full'}. Settings under test: {settings}. Markers: [V] seen in a "
+             "public source, [M] from memory (wide band), [D] derived.", ""]
     summary = []
+    try:
+        _run_cases(lines, summary, quick, out_dir, progress)
+    finally:
+        _USER_PARAMS.clear()
+    head = ["| case | source | marker | result |", "|---|---|---|---|"] + summary + [""]
+    lines[6:6] = head
+    lines += ["", CAUTION, ""]
+    path = os.path.join(out_dir, "report.md")
+    tmp = path + ".tmp"
+    with open(tmp, "w", encoding="utf-8") as f:
+        f.write("\n".join(lines))
+    os.replace(tmp, path)
+    return path
+
+
+def _run_cases(lines, summary, quick, out_dir, progress):
     for key, title, source, marker, fn in CASES:
         t0 = time.perf_counter()
         if progress:
@@ -430,15 +459,6 @@ def run_verification(out_dir, quick=False, progress=True):
         if res.get("plot"):
             lines += [f"![{title}]({res['plot']})", ""]
         lines += [f"({secs:.1f} s)", ""]
-    head = ["| case | source | marker | result |", "|---|---|---|---|"] + summary + [""]
-    lines[6:6] = head
-    lines += ["", CAUTION, ""]
-    path = os.path.join(out_dir, "report.md")
-    tmp = path + ".tmp"
-    with open(tmp, "w", encoding="utf-8") as f:
-        f.write("\n".join(lines))
-    os.replace(tmp, path)
-    return path
 
 
 def _fmt(values, indent=0):

@@ -57,3 +57,15 @@ def test_run_with_a_budget_reports_the_governor_choice(capsys):
     summary = json.loads(capsys.readouterr().out.strip().splitlines()[-1])
     # a budget nothing can meet: the governor drops to the narrowest search it allows
     assert summary["budget_ms"] == 0.001 and summary["last_search_width"] == 0 and summary["last_neighbours"] == 4
+
+
+def test_verify_takes_the_params_of_a_scenario_file(tmp_path, monkeypatch, capsys):
+    import crowdcore.verify as verify
+    got = {}
+    monkeypatch.setattr(verify, "run_verification",
+                        lambda out, quick=False, progress=True, params=None: got.update(params=params) or "r.md")
+    scene = tmp_path / "mine.toml"
+    scene.write_text("[params]\norca_tau = 1.5\n[params.weights]\navoidance = 2.0\n")
+    assert main(["verify", "--quick", "--quiet", "--params", str(scene), "--out", str(tmp_path)]) == 0
+    assert got["params"]["orca_tau"] == 1.5 and got["params"]["weights"]["avoidance"] == 2.0
+    assert "never replace" in capsys.readouterr().out

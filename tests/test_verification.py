@@ -7,6 +7,7 @@ import pytest
 
 from crowdcore import params as _params
 from crowdcore import verify
+from crowdcore.errors import ScenarioError
 
 
 def test_demographic_speeds_reproduce_input():
@@ -62,3 +63,21 @@ def test_report_carries_caution_and_cases(tmp_path, monkeypatch):
     for _k, title, source, marker, _ in verify.CASES:
         assert title in text and source in text and marker in text
     assert os.path.basename(path) == "report.md"
+
+
+def test_report_verifies_the_users_settings(tmp_path, monkeypatch):
+    seen = []
+
+    def case(quick, out_dir=None):
+        w = verify._world(seed=1)
+        seen.append((w.params.orca_tau, w.params.weights["avoidance"]))
+        return {"passed": True, "values": {}}
+
+    monkeypatch.setattr(verify, "CASES", [("only", "One case", "a source", "[M]", case)])
+    path = verify.run_verification(str(tmp_path), quick=True, progress=False,
+                                   params={"orca_tau": 1.5, "weights": {"avoidance": 2.0}})
+    assert seen == [(1.5, 2.0)]
+    assert "orca_tau = 1.5" in open(path, encoding="utf-8").read()
+    assert verify._world().params.orca_tau != 1.5          # the settings do not leak into later worlds
+    with pytest.raises(ScenarioError, match="params.orca_tau"):
+        verify.run_verification(str(tmp_path), quick=True, progress=False, params={"orca_tau": -1})

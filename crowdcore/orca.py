@@ -136,45 +136,12 @@ def wall_line(px, py, vx, vy, r, x0, y0, x1, y1, tau_obst, dt):
 # ------------------------------------------------------------------ linear programs
 
 @kernel
-def _lp1(ln, no, vmax, optx, opty, dir_opt, rx, ry):
-    """Best point on line `no` subject to lines 0..no-1 and the speed disc. Returns (ok, x, y)."""
-    ptx, pty, dx, dy = ln[no, 0], ln[no, 1], ln[no, 2], ln[no, 3]
-    dot = ptx * dx + pty * dy
-    disc = dot * dot + vmax * vmax - (ptx * ptx + pty * pty)
-    if disc < 0.0:
-        return False, rx, ry          # the line misses the speed disc
-    sq = np.sqrt(disc)
-    t_lo = -dot - sq
-    t_hi = -dot + sq
-    for k in range(no):
-        denom = _det(dx, dy, ln[k, 2], ln[k, 3])
-        numer = _det(ln[k, 2], ln[k, 3], ptx - ln[k, 0], pty - ln[k, 1])
-        if abs(denom) <= _EPS:
-            if numer < 0.0:
-                return False, rx, ry  # parallel and on the forbidden side of line k
-            continue
-        t = numer / denom
-        if denom >= 0.0:
-            t_hi = min(t_hi, t)
-        else:
-            t_lo = max(t_lo, t)
-        if t_lo > t_hi:
-            return False, rx, ry
-    if dir_opt:
-        t = t_hi if optx * dx + opty * dy > 0.0 else t_lo
-    else:
-        t = dx * (optx - ptx) + dy * (opty - pty)
-        t = min(max(t, t_lo), t_hi)
-    return True, ptx + t * dx, pty + t * dy
-
-
-@kernel
 def _lp2(ln, count, vmax, optx, opty, dir_opt):
     """Incremental 2-D LP over lines 0..count-1 in the given order. Returns (fail, x, y):
     fail == count when feasible, else the first line that could not be satisfied (x, y is then
     the best point for the lines before it).
 
-    The 1-D step (_lp1) is written out inline: a helper call with an array argument costs atomic
+    The 1-D step (best point on one line) is written out inline: a helper call with an array argument costs atomic
     reference counting, and it runs once per violated line. Same arithmetic, same order."""
     if dir_opt:
         rx, ry = optx * vmax, opty * vmax     # opt is a unit direction here
@@ -189,7 +156,7 @@ def _lp2(ln, count, vmax, optx, opty, dir_opt):
         ptx, pty, dx, dy = ln[no, 0], ln[no, 1], ln[no, 2], ln[no, 3]
         if _det(dx, dy, ptx - rx, pty - ry) <= 0.0:
             continue
-        # best point on line `no` subject to lines 0..no-1 and the speed disc (see _lp1)
+        # best point on line `no` subject to lines 0..no-1 and the speed disc 
         dot = ptx * dx + pty * dy
         disc = dot * dot + vmax * vmax - (ptx * ptx + pty * pty)
         if disc < 0.0:

@@ -2,22 +2,8 @@
 import numpy as np
 
 from ._jit import kernel
+from .navfield import _point_in_poly
 from .spatial import point_segment_distance
-
-
-@kernel
-def _inside_polygon(x, y, poly):
-    inside = False
-    k = poly.shape[0]
-    j = k - 1
-    for i in range(k):
-        yi, yj = poly[i, 1], poly[j, 1]
-        if (yi > y) != (yj > y):
-            xc = poly[i, 0] + (y - yi) * (poly[j, 0] - poly[i, 0]) / (yj - yi)
-            if x < xc:
-                inside = not inside
-        j = i
-    return inside
 
 
 @kernel
@@ -57,7 +43,7 @@ def greedy_place(cand, radius, gap, segments, polys_flat, poly_start, placed, co
                 break
         if ok:
             for p in range(poly_start.shape[0] - 1):
-                if _inside_polygon(x, y, polys_flat[poly_start[p]:poly_start[p + 1]]):
+                if _point_in_poly(x, y, polys_flat, poly_start[p], poly_start[p + 1]):
                     ok = False
                     break
         if ok:

@@ -139,8 +139,8 @@ class SceneCache:
         self.segments = scene.segments()
         xmin, ymin, xmax, ymax = self.bounds
         self.wall_grid = HashGrid.covering(xmin, ymin, xmax, ymax, 2.0, max_cells=1 << 20)
-        self.wall_margin = 3.0  # a cell lists every segment within this reach of it
-        self.wall_start, self.wall_items = build_wall_grid(self.segments, self.wall_grid, self.wall_margin)
+        # a segment is listed in the cells its bounding box touches; queries cover their whole reach
+        self.wall_start, self.wall_items = build_wall_grid(self.segments, self.wall_grid, 0.0)
         self.nav = NavFields.build(
             self.segments,
             [p for p in scene.obstacles],

@@ -40,6 +40,7 @@ _MARGIN_REL = 1e-9      # prune only when a bound beats the best by this fractio
 _FEAS_REL = 1e-9        # strict-mode feasibility tests are relaxed by this fraction of each line's scale
 _BIG = 1.7976931348623157e308  # largest float64: energy bounds are capped here, inf means infeasible
 _BLOCK = 64             # agents per parallel work item (scratch buffers are shared within a block)
+_HESS_DIR = 1.25        # |Hessian of cos(angle(q) - beta)| <= (2/sqrt(3))/|q|^2 ~ 1.155/|q|^2; rounded up
 _NODE_COLS = 13         # qx_lo qx_hi qy_lo qy_hi a_lo a_hi phi_lo phi_hi cos/sin(phi_lo) cos/sin(phi_hi) b_lo
 
 
@@ -760,10 +761,38 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                     lbc = W * d2 + C0
                     da = max(node_box[mc, 4] - s, 0.0, s - node_box[mc, 5])
                     lbc += w1 * (da * da)
-                    if use_dir and not (node_box[mc, 6] <= beta <= node_box[mc, 7]):
-                        c_lo = node_box[mc, 8] * cb + node_box[mc, 9] * sb
-                        c_hi = node_box[mc, 10] * cb + node_box[mc, 11] * sb
-                        lbc += w3 * (1.0 - max(c_lo, c_hi))
+                    if use_dir:
+                        if not (node_box[mc, 6] <= beta <= node_box[mc, 7]):
+                            c_lo = node_box[mc, 8] * cb + node_box[mc, 9] * sb
+                            c_hi = node_box[mc, 10] * cb + node_box[mc, 11] * sb
+                            lbc += w3 * (1.0 - max(c_lo, c_hi))
+                        # The bound above minimises the quadratic and direction terms apart, which is
+                        # loose where they pull apart (nav direction off the heading). A joint bound:
+                        # on a box away from the origin the direction term is at least its tangent
+                        # plane at q0 minus (M/2)|q - q0|^2, M >= its Hessian norm; folded into the
+                        # quadratic this is one paraboloid whose box minimum is exact.
+                        rx = max(x0, 0.0, -x1)
+                        ry = max(y0, 0.0, -y1)
+                        rmin2 = rx * rx + ry * ry
+                        if rmin2 > 0.0:
+                            mh = 0.5 * _HESS_DIR * w3 / rmin2
+                            w_j = W - mh
+                            if w_j > 0.0:
+                                q0x = min(max(cx, x0), x1)
+                                q0y = min(max(cy, y0), y1)
+                                r0 = math.sqrt(q0x * q0x + q0y * q0y)
+                                h0 = (q0x * cb + q0y * sb) / r0
+                                gdx = -w3 * (cb - h0 * q0x / r0) / r0
+                                gdy = -w3 * (sb - h0 * q0y / r0) / r0
+                                jx = (W * cx - mh * q0x - 0.5 * gdx) / w_j
+                                jy = (W * cy - mh * q0y - 0.5 * gdy) / w_j
+                                kj = (W * (cx * cx + cy * cy) - mh * (q0x * q0x + q0y * q0y)
+                                      - (gdx * q0x + gdy * q0y) + w3 * (1.0 - h0) - w_j * (jx * jx + jy * jy))
+                                ddx = max(x0 - jx, 0.0, jx - x1)
+                                ddy = max(y0 - jy, 0.0, jy - y1)
+                                lbj = w_j * (ddx * ddx + ddy * ddy) + kj + C0 + w1 * (da * da)
+                                if lbj > lbc:
+                                    lbc = lbj
                     if lbc > _BIG:  # overflow: the largest finite value is still a bound
                         lbc = _BIG
                     if lbc > best + margin:

@@ -527,9 +527,17 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
             cx = 0.0
             cy = 0.0
             C0 = 0.0
+            c_eligible = False
             if W > 0.0:
                 gx = tx / W
                 gy = ty / W
+                # Most agents' quadratic centre is itself eligible: then the best record lies near it,
+                # inside every half-plane, and building the feasible outline would cost more than it saves.
+                c_eligible = True
+                for j in range(nl):
+                    if lines[i, j, 2] * (lines[i, j, 1] - gy) - lines[i, j, 3] * (lines[i, j, 0] - gx) > 0.0:
+                        c_eligible = False
+                        break
                 C0 = pp - W * (gx * gx + gy * gy)
                 cx = ct * gx + st * gy
                 cy = -st * gx + ct * gy
@@ -563,8 +571,15 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                 nf = 0
             else:
                 # Where eligible records can lie (strict mode); nothing to search when nowhere.
-                nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start,
-                                      k0, k1, fl, fb, poly)
+                if c_eligible:  # skip the outline: exactness never depends on it (`_allowed` decides)
+                    fb[0] = -np.inf
+                    fb[1] = np.inf
+                    fb[2] = -np.inf
+                    fb[3] = np.inf
+                    nf = 0
+                else:
+                    nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start,
+                                          k0, k1, fl, fb, poly)
                 if nf < 0:
                     k1 = k0 - 1
                     nf = 0

@@ -517,8 +517,12 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
         if nb > 0 and a.shape[0] > 0:
             k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
             # Quadratic terms as W*|q - c'|^2 + C0 in the heading frame.
-            ct = math.cos(theta)
-            st = math.sin(theta)
+            if s > HEADING_EPS:  # same frame as cos/sin(theta) up to rounding, far inside the margins
+                ct = vnx / s
+                st = vny / s
+            else:
+                ct = math.cos(theta)
+                st = math.sin(theta)
             W = w0 + w2 + w4 + w5
             tx = w0 * vnx + w2 * vpx + w4 * vsx + w5 * vgx
             ty = w0 * vny + w2 * vpy + w4 * vsy + w5 * vgy
@@ -789,18 +793,19 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                         rx = max(x0, 0.0, -x1)
                         ry = max(y0, 0.0, -y1)
                         rmin2 = rx * rx + ry * ry
-                        if rmin2 > 0.0:
+                        if rmin2 > 0.0 and not lbc > best + margin:  # only when the cheap bound keeps the node
                             mh = 0.5 * _HESS_DIR * w3 / rmin2
                             w_j = W - mh
                             if w_j > 0.0:
                                 q0x = min(max(cx, x0), x1)
                                 q0y = min(max(cy, y0), y1)
-                                r0 = math.sqrt(q0x * q0x + q0y * q0y)
-                                h0 = (q0x * cb + q0y * sb) / r0
-                                gdx = -w3 * (cb - h0 * q0x / r0) / r0
-                                gdy = -w3 * (sb - h0 * q0y / r0) / r0
-                                jx = (W * cx - mh * q0x - 0.5 * gdx) / w_j
-                                jy = (W * cy - mh * q0y - 0.5 * gdy) / w_j
+                                ir0 = 1.0 / math.sqrt(q0x * q0x + q0y * q0y)
+                                h0 = (q0x * cb + q0y * sb) * ir0
+                                gdx = -w3 * (cb - h0 * q0x * ir0) * ir0
+                                gdy = -w3 * (sb - h0 * q0y * ir0) * ir0
+                                iwj = 1.0 / w_j
+                                jx = (W * cx - mh * q0x - 0.5 * gdx) * iwj
+                                jy = (W * cy - mh * q0y - 0.5 * gdy) * iwj
                                 kj = (W * (cx * cx + cy * cy) - mh * (q0x * q0x + q0y * q0y)
                                       - (gdx * q0x + gdy * q0y) + w3 * (1.0 - h0) - w_j * (jx * jx + jy * jy))
                                 ddx = max(x0 - jx, 0.0, jx - x1)

@@ -537,9 +537,10 @@ def run_budget(quick=False, out_dir="crowdcore-budget", progress=True, config=No
     cal_n = cfg.calibrate_n or min(max(res["max_agents_30fps"], 500), 20000)
     coeffs = gv.calibrate(n=cal_n, frames=max(2, cfg.frames))
     budget = BUDGETS_MS["30fps"]
-    # agents from where z_max fits to where even (z=0, K=4) is over budget, by the model
-    n_lo = max(16, gv.max_agents(budget, coeffs, 10, 8) // 2)
-    n_hi = max(n_lo + cfg.governor_frames, int(gv.max_agents(budget, coeffs, 4, 0) * 1.3))
+    # agents from half of where z_max fits up to the most the governor can hold (z=0, K=4), by the model
+    held = gv.HEADROOM * budget
+    n_lo = max(16, gv.max_agents(held, coeffs, 10, 8) // 2)
+    n_hi = max(n_lo + cfg.governor_frames, gv.max_agents(held, coeffs, 4, 0))
     n_hi = min(n_hi, cfg.governor_max)
     n_lo = min(n_lo, n_hi // 2)
     add = max(1, (n_hi - n_lo) // cfg.governor_frames)
@@ -551,6 +552,8 @@ def run_budget(quick=False, out_dir="crowdcore-budget", progress=True, config=No
                        "agents_from": trace["n"][0], "agents_to": trace["n"][-1],
                        "z_chosen": sorted(set(trace["z"])), "k_chosen": sorted(set(trace["k"])),
                        "frames_over_budget": int((meas > budget).sum()), "frames": len(meas),
+                       "model_error_median_pct": round(float(np.median(
+                           np.abs(meas - np.asarray(trace["estimate_ms"])) / np.maximum(meas, 1e-9))) * 100, 1),
                        "measured_ms_median": round(float(np.median(meas)), 3), "plot": gov_png}
     done()
 

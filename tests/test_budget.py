@@ -15,17 +15,17 @@ from crowdcore.budget import SCENES, TINY, fit_exponent, layout, run_budget
 from crowdcore.errors import ScenarioError
 
 coeff = st.floats(0.0, 1.0, allow_nan=False)
-coeffs_st = st.tuples(st.floats(0.0, 10.0), coeff, coeff, coeff)
+coeffs_st = st.tuples(st.floats(0.0, 10.0), coeff, coeff, coeff, coeff)
 
 
 def plan_reference(n, budget, coeffs, z_max, k_min, k_max):
-    """Obvious version of the rule: every (z, K) in order of preference, the first that fits."""
+    """Obvious version of the rule: every (z, K) in order of preference, the first that fits HEADROOM x budget."""
     if budget <= 0:
         return z_max, k_max
     prefs = [(z, k_max) for z in range(z_max, -1, -1)] + [(0, k) for k in range(k_max - 1, k_min - 1, -1)]
     for z, k in prefs:
-        c0, ca, cn, cb = coeffs
-        if c0 + n * (ca + cn * k + cb * (2 * z + 1)) <= budget:
+        c0, ca, cn, cb, cw = coeffs
+        if c0 + n * (ca + cn * k + cb * (2 * z + 1) + (cw if z > 0 else 0.0)) <= gv.HEADROOM * budget:
             return z, k
     return 0, k_min
 
@@ -51,7 +51,13 @@ def test_plan_matches_reference_and_fits(n, budget, coeffs, z_max, k_min, dk):
     z, k = got
     assert 0 <= z <= z_max and k_min <= k <= k_max
     if budget > 0 and (z, k) != (0, k_min):
-        assert gv.estimate_ms(n, k, z, coeffs) <= budget
+        assert gv.estimate_ms(n, k, z, coeffs) <= gv.HEADROOM * budget
+
+
+def test_four_coefficients_read_as_the_model_without_the_wide_step():
+    assert gv.check_coeffs((1, 2, 3, 4)) == (1.0, 2.0, 3.0, 4.0, 0.0)
+    assert gv.estimate_ms(10, 4, 2, (1, 2, 3, 4)) == gv.estimate_ms(10, 4, 2, (1, 2, 3, 4, 0))
+    assert gv.estimate_ms(10, 4, 1, (0, 0, 0, 0, 1.0)) == 10.0 and gv.estimate_ms(10, 4, 0, (0, 0, 0, 0, 1.0)) == 0.0
 
 
 @settings(max_examples=100, deadline=None)
@@ -74,6 +80,7 @@ def test_plan_examples_and_bounds():
 
 
 @pytest.mark.parametrize("bad, name", [((1, 2, 3), "budget_coeffs"), ((1, 2, -1, 0), "nbr_ms"),
+                                       ((1, 2, 3, 4, 5, 6), "budget_coeffs"), ((1, 2, 0, 0, -1), "wide_ms"),
                                        ((1, math.nan, 0, 0), "agent_ms"), ("abcd", "budget_coeffs"),
                                        ((True, 0, 0, 0), "c0_ms")])
 def test_check_coeffs_names_the_problem(bad, name):

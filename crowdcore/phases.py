@@ -2,6 +2,8 @@
 
 Each kernel reads last frame's arrays and writes only its own agent's row of fresh buffers.
 """
+import math
+
 import numpy as np
 from numba import prange
 
@@ -51,7 +53,7 @@ def group_pull_phase(pos, group, group_centre, pref_vel, pref_speed, v_group):
         # catch up with the centre within one second, on top of the route velocity
         vx = pref_vel[i, 0] + (group_centre[g, 0] - pos[i, 0])
         vy = pref_vel[i, 1] + (group_centre[g, 1] - pos[i, 1])
-        s = np.hypot(vx, vy)
+        s = math.sqrt(vx * vx + vy * vy)
         cap = 1.3 * pref_speed[i]
         if s > cap:
             vx *= cap / s
@@ -74,7 +76,7 @@ def move_phase(pos, new_vel, radius, target, target_kind, target_shape, dt,
         vx, vy = new_vel[i, 0], new_vel[i, 1]
         x1, y1 = x0 + vx * dt, y0 + vy * dt
         cand = np.empty(64, np.int32)
-        reach = np.hypot(vx, vy) * dt + 1e-9
+        reach = math.sqrt(vx * vx + vy * vy) * dt + 1e-9
         count = walls_near(x0, y0, reach, walls, wall_start, wall_items, wox, woy, wc, wnx, wny, cand)
         crossed = False
         for c in range(count):
@@ -103,7 +105,9 @@ def separation_phase(pos, radius, ids, nbr, nbr_count, overlap_tol, min_gap, ove
         c = 0
         for s in range(nbr_count[i]):
             j = nbr[i, s]
-            d = np.hypot(pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1])
+            dx = pos[j, 0] - pos[i, 0]
+            dy = pos[j, 1] - pos[i, 1]
+            d = math.sqrt(dx * dx + dy * dy)
             rs = radius[i] + radius[j]
             g = min(g, d - rs)
             if ids[j] > ids[i] and d < rs * (1.0 - overlap_tol):
@@ -167,7 +171,7 @@ def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_ti
         for s in range(nbr_count[i]):
             j = nbr[i, s]
             dx, dy = pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]
-            d = np.hypot(dx, dy)
+            d = math.sqrt(dx * dx + dy * dy)  # not hypot: ~7x slower, and no overflow to guard against
             ahead = dx * ex + dy * ey
             if d == 0.0 or ahead <= 0.0:
                 continue
@@ -187,7 +191,9 @@ def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_ti
                 pref_vel[i, 0] * pref_vel[i, 0] + pref_vel[i, 1] * pref_vel[i, 1]):
             for s in range(nbr_count[i]):
                 j = nbr[i, s]
-                if np.hypot(pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]) - radius[i] - radius[j] < 0.05:
+                dx = pos[j, 0] - pos[i, 0]
+                dy = pos[j, 1] - pos[i, 1]
+                if math.sqrt(dx * dx + dy * dy) - radius[i] - radius[j] < 0.05:
                     stuck = True
                     break
         if not oncoming and keep_right != 0.0:
@@ -203,7 +209,7 @@ def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_ti
                         oncoming = True
                         break
         px, py = pref_vel[i, 0], pref_vel[i, 1]
-        sp = np.hypot(px, py)
+        sp = math.sqrt(px * px + py * py)
         if sp > limit:
             f = limit / sp
             px *= f

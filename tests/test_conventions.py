@@ -27,7 +27,7 @@ def ref_conventions(pos, vel, radius, ids, nav, nbrs, pref, T, cone_deg, keep_de
         limit, oncoming = math.inf, False
         for j in nbrs[i]:
             d_vec = pos[j] - pos[i]
-            d = math.hypot(*d_vec)
+            d = math.sqrt(d_vec[0] * d_vec[0] + d_vec[1] * d_vec[1])
             ahead = d_vec[0] * e[0] + d_vec[1] * e[1]
             if d == 0 or ahead <= 0:
                 continue
@@ -43,7 +43,7 @@ def ref_conventions(pos, vel, radius, ids, nav, nbrs, pref, T, cone_deg, keep_de
             if T > 0:
                 limit = min(limit, max(0.0, d - radius[i] - radius[j]) / T)
         stuck = jostle_deg != 0 and vel[i] @ vel[i] < 0.04 * (pref[i] @ pref[i]) and any(
-            math.hypot(*(pos[j] - pos[i])) - radius[i] - radius[j] < 0.05 for j in nbrs[i])
+            math.sqrt((pos[j] - pos[i]) @ (pos[j] - pos[i])) - radius[i] - radius[j] < 0.05 for j in nbrs[i])
         if not oncoming and keep_deg != 0:
             for k in range(1, int(look / (0.5 * FCELL)) + 1):
                 q = pos[i] + e * 0.5 * FCELL * k
@@ -53,7 +53,7 @@ def ref_conventions(pos, vel, radius, ids, nav, nbrs, pref, T, cone_deg, keep_de
                     oncoming = True
                     break
         p = pref[i].copy()
-        sp = math.hypot(*p)
+        sp = math.sqrt(p[0] * p[0] + p[1] * p[1])
         if sp > limit:
             p *= limit / sp
         if oncoming and keep_deg != 0:

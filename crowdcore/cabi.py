@@ -531,11 +531,11 @@ def _bind(ffi, lib):
                     if dt != dt or dt == inf or dt == -inf:
                         raise _Fail(ERR_NOT_FINITE, f"dt: must be finite, got {dt!r}")
                     raise _Fail(ERR_RANGE, f"dt: must lie in (0, {w.params.max_dt}] seconds, got {dt!r}")
+                s.version += 1   # bookkeeping first: after a big step the caches are cold, and a refused
+                s.snap = None    # or failed step changes nothing that these two describe
                 t0 = perf_counter()
                 w.step(dt)
                 s.step_seconds = perf_counter() - t0
-                s.version += 1
-                s.snap = None
             finally:
                 lock.release()
             return OK

@@ -13,7 +13,16 @@ q_r = b_r*(cos phi_r, sin phi_r), which does not depend on the agent, so the qua
 nearest-point query among fixed points q_r around c' = rotate(c, -theta). Tree nodes also bound the
 entry speed a (consistency term) and the turn angle phi (direction term).
 
-Strict mode also prunes by feasibility: the agent's half-planes, rotated into the heading frame and
+Bounding the quadratic and direction terms apart is loose when the navigation direction points away
+from the heading (they pull towards different records), and such agents used to expand about 7x more
+nodes. So each node also gets a joint bound: on a box away from the origin, 1 - cos(angle(q) - beta)
+is at least its tangent plane at q0 minus (M/2)|q - q0|^2, where M = 1.25/|q|min^2 exceeds the norm of
+its Hessian (at most (2/sqrt 3)/|q|^2); added to W|q - c'|^2 this is one paraboloid whose minimum over
+the box is exact. Mean nodes per agent fell from 32.8 to 17.6 (square-1, 10,000 agents).
+
+Strict mode also prunes by feasibility, unless the centre c itself satisfies every half-plane (the
+usual case: then the best record lies near c and the outline below costs more than it saves): the
+agent's half-planes, rotated into the heading frame and
 relaxed by 1e-9 of their scale, are clipped against the searched buckets' q box and the speed limit
 into a convex outline of where eligible records can lie. An empty outline ends the search at once;
 otherwise a node is skipped when its q box misses the outline's box or lies wholly beyond one line,

@@ -247,9 +247,16 @@ def solve_lines(ln, count, n_hard, vmax, prefx, prefy, proj):
 
 @parallel_kernel
 def orca_phase(pos, vel, radius, max_speed, pref_vel, nbr, nbr_count, walls, wall_cell_start,
-               wall_cell_items, ox, oy, wc, wnx, wny, tau, tau_obst, dt, lines, line_count, v_safe):
+               wall_cell_items, ox, oy, wc, wnx, wny, tau, tau_obst, dt, nav_dir, queue_gap, lines, line_count,
+               v_safe):
     """ORCA for every agent: lines[i, :line_count[i]] (walls first, then neighbours; lines beyond
     the capacity L = lines.shape[1] are dropped, walls kept first) and v_safe[i].
+
+    queue_gap > 0: agent i counts its own radius larger by queue_gap * cos(angle between its route
+    nav_dir[i] and the direction to j) for a neighbour j ahead of it, so a waiting queue keeps that
+    much room and stays loose. Without it the crowd behind a door packed to zero gaps, where every
+    ORCA program admits only v = 0, and the crowd froze for good. Bodies (guard, invariants) keep
+    their true radius; queue_gap = 0 is plain ORCA.
 
     The per-agent body is written out in the loop: a helper taking a dozen arrays paid two atomic
     reference-count updates per array per agent, more than the half-plane arithmetic."""
@@ -287,7 +294,15 @@ def orca_phase(pos, vel, radius, max_speed, pref_vel, nbr, nbr_count, walls, wal
                 j = nbr[i, s]
                 if j < 0 or j == i:
                     continue
-                qx, qy, dx, dy = agent_line(i, j, px, py, vx, vy, r, pos[j, 0], pos[j, 1], vel[j, 0], vel[j, 1],
+                ri = r
+                if queue_gap > 0.0:
+                    # keep queue_gap from whoever is ahead along the route (scaled by how far ahead)
+                    ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
+                    dd = np.sqrt(ddx * ddx + ddy * ddy)
+                    ahead = ddx * nav_dir[i, 0] + ddy * nav_dir[i, 1]
+                    if dd > 0.0 and ahead > 0.0:
+                        ri = r + queue_gap * min(ahead / dd, 1.0)
+                qx, qy, dx, dy = agent_line(i, j, px, py, vx, vy, ri, pos[j, 0], pos[j, 1], vel[j, 0], vel[j, 1],
                                             radius[j], tau, dt)
                 ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = qx, qy, dx, dy
                 m += 1

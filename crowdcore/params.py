@@ -42,10 +42,14 @@ class Params:
                                           # made opposing streams stop short of each other and lock)
     orca_tau_walls: float = 0.2           # ORCA horizon for walls (common practice: short, so agents may
                                           # walk close along door frames; 0.5 s cut bottleneck flow)
+    queue_gap: float = 0.2                # m; ORCA keeps this extra room from agents ahead on the route, so a
+                                          # queue is not packed rigid (0 = off; 0 froze a 0.8 m door for good,
+                                          # 0.1 still did in some seeds; tuned, no source)
     max_dt: float = 1.0                   # larger steps are refused
     headway_time: float = 0.5             # s; plan no faster than gap ahead / this (0 = off)
     headway_cone: float = 30.0            # degrees either side of the route that count as "ahead"
-    keep_right: float = 25.0              # degrees to turn right when someone walks towards you (0 = off)
+    keep_right: float = 45.0              # degrees to turn right when someone walks towards you (0 = off; tuned,
+                                          # no source: 25 let 20 or 40 against 40 lock in a 2 m corridor)
     jostle: float = 0.0                   # degrees of shuffling for agents pressed and stuck (0 = off)
     look_ahead: float = 10.0              # m along the route where an opposing flow counts as oncoming
     budget_ms: float = 0.0                # > 0: the governor picks search width and K per frame to fit this
@@ -74,8 +78,8 @@ class Params:
             v = getattr(self, key)
             if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= hi:
                 bad(key, f"must be an integer in 0..{hi}, got {v!r}")
-        for key, hi in (("headway_time", 10.0), ("headway_cone", 90.0), ("keep_right", 90.0), ("look_ahead", 50.0),
-                        ("jostle", 180.0)):
+        for key, hi in (("queue_gap", 1.0), ("headway_time", 10.0), ("headway_cone", 90.0), ("keep_right", 90.0),
+                        ("look_ahead", 50.0), ("jostle", 180.0)):
             v = getattr(self, key)
             if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or not 0 <= v <= hi:
                 bad(key, f"must be a number in [0, {hi}], got {v!r}")

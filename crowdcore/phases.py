@@ -142,7 +142,7 @@ def flow_grid(pos, vel, ox, oy, cell, nx, ny, flow):
 
 
 @parallel_kernel
-def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_time, cos_cone, keep_right,
+def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, headway_time, cos_cone, keep_right,
                       flow, fox, foy, fcell, look_ahead, jostle, seed, frame, pref_vel):
     """Two walking conventions that shape the preferred velocity (own row only):
 
@@ -150,8 +150,8 @@ def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_ti
       the nearest neighbour ahead (in the cone around its route) that walks the same way (within 60
       degrees). This is what makes speed fall with density. Standing people and people crossing the
       path are left to avoidance: counting them let crossing streams wait for each other for ever.
-    - keep right: with someone walking towards it ahead (a neighbour, or an opposing mean flow in the
-      flow grid up to look_ahead metres along its route), an agent turns its preferred direction by
+    - keep right: with someone walking towards it ahead (a neighbour bound for another target, or an
+      opposing mean flow in the flow grid up to look_ahead metres along its route), an agent turns its preferred direction by
       keep_right radians clockwise, so opposing streams pass left side to left side and form lanes
       before they meet instead of locking head-on.
     - jostle: an agent that is pressed against a neighbour and barely moving turns its preferred
@@ -177,7 +177,11 @@ def conventions_phase(pos, vel, radius, ids, nav_dir, nbr, nbr_count, headway_ti
                 continue
             along = vel[j, 0] * ex + vel[j, 1] * ey
             if along < 0.0:
-                oncoming = True   # anyone ahead walking towards us, not just in the headway cone
+                # anyone ahead walking towards us, not just in the headway cone, unless bound for our own
+                # target: people converging on one door do not meet head-on, and turning right there
+                # steered them off the opening (bottleneck flow fell, 0.8 m doors jammed)
+                if target[j] != target[i]:
+                    oncoming = True
                 continue
             if ahead < cos_cone * d:
                 continue

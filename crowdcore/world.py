@@ -391,7 +391,8 @@ class World:
             fg = self._flow_grid
             flow = np.empty((fg.ny, fg.nx, 3))
             phases.flow_grid(pos, vel, *fg.args, flow)
-            phases.conventions_phase(pos, vel, a["radius"], a["ids"], nav_dir, nbr, nbr_count, p.headway_time,
+            phases.conventions_phase(pos, vel, a["radius"], a["ids"], a["target"], nav_dir, nbr, nbr_count,
+                                     p.headway_time,
                                      math.cos(math.radians(p.headway_cone)), math.radians(p.keep_right),
                                      flow, fg.ox, fg.oy, fg.cell, p.look_ahead, math.radians(p.jostle),
                                      self.seed & 0xFFFFFFFFFFFFFFFF, self.frame, pref_vel)
@@ -408,7 +409,8 @@ class World:
         v_safe = np.empty((n, 2))
         if p.avoidance == "orca":
             orca_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
-                       c.wall_items, *wg.args, p.orca_tau, p.orca_tau_walls, dt, lines, line_count, v_safe)
+                       c.wall_items, *wg.args, p.orca_tau, p.orca_tau_walls, dt, nav_dir, p.queue_gap, lines,
+                       line_count, v_safe)
         else:
             sf = SocialForceParams()
             social_force_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,

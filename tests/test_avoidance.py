@@ -120,7 +120,8 @@ def run_orca(pos, vel, rad, vmax, pref, nbr, cnt, walls, grid, p=OrcaParams(), d
     lines = np.zeros((n, L, 4))
     lc = np.zeros(n, np.int32)
     vs = np.zeros((n, 2))
-    orca_phase(pos, vel, rad, vmax, pref, nbr, cnt, walls, *grid, p.tau, p.tau_obst, dt, lines, lc, vs)
+    orca_phase(pos, vel, rad, vmax, pref, nbr, cnt, walls, *grid, p.tau, p.tau_obst, dt, np.zeros((n, 2)), 0.0,
+               lines, lc, vs)  # queue_gap 0: plain ORCA
     return vs, lines, lc
 
 

@@ -18,7 +18,8 @@ def ref_flow(pos, vel):
     return flow
 
 
-def ref_conventions(pos, vel, radius, ids, nav, nbrs, pref, T, cone_deg, keep_deg, flow, look, jostle_deg, seed, frame):
+def ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, cone_deg, keep_deg, flow, look, jostle_deg, seed,
+                    frame):
     out = pref.copy()
     for i in range(len(pos)):
         e = nav[i]
@@ -33,7 +34,7 @@ def ref_conventions(pos, vel, radius, ids, nav, nbrs, pref, T, cone_deg, keep_de
                 continue
             along = vel[j, 0] * e[0] + vel[j, 1] * e[1]
             if along < 0:
-                oncoming = True
+                oncoming = oncoming or target[j] != target[i]   # same target: converging, not oncoming
                 continue
             if ahead < math.cos(math.radians(cone_deg)) * d:
                 continue
@@ -75,6 +76,7 @@ def test_kernel_equals_reference(seed, n, T, keep, jostle, frame):
     vel = rng.normal(0, 0.8, (n, 2)) * rng.integers(0, 2, (n, 1))        # some agents stand still
     radius = rng.uniform(0.2, 0.3, n)
     ids = rng.permutation(np.arange(1, n + 1)).astype(np.int32)
+    target = rng.integers(0, 2, n).astype(np.int32)
     ang = rng.uniform(-np.pi, np.pi, n)
     nav = np.column_stack([np.cos(ang), np.sin(ang)]) * (rng.random((n, 1)) > 0.1)
     pref = nav * rng.uniform(0.8, 1.6, (n, 1))
@@ -92,22 +94,22 @@ def test_kernel_equals_reference(seed, n, T, keep, jostle, frame):
     flow_grid(pos, vel, FOX, FOY, FCELL, FNX, FNY, flow)
     assert np.allclose(flow, ref_flow(pos, vel), rtol=0, atol=1e-12)
     got = pref.copy()
-    conventions_phase(pos, vel, radius, ids, nav, nbr, cnt, T, math.cos(math.radians(30.0)), math.radians(keep),
+    conventions_phase(pos, vel, radius, ids, target, nav, nbr, cnt, T, math.cos(math.radians(30.0)), math.radians(keep),
                       flow, FOX, FOY, FCELL, 10.0, math.radians(jostle), seed, frame, got)
-    want = ref_conventions(pos, vel, radius, ids, nav, nbrs, pref, T, 30.0, keep, flow, 10.0, jostle, seed, frame)
+    want = ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, 30.0, keep, flow, 10.0, jostle, seed, frame)
     assert np.allclose(got, want, rtol=0, atol=1e-12)
 
 
-def _pair(leader_vel, gap=0.3, keep=0.0):
+def _pair(leader_vel, gap=0.3, keep=0.0, targets=(0, 1)):
     pos = np.array([[0.0, 0.0], [0.5 + gap, 0.0]])
     vel = np.array([[1.0, 0.0], leader_vel])
     nav = np.array([[1.0, 0.0], [1.0, 0.0]])
     pref = np.array([[1.3, 0.0], [1.3, 0.0]])
     nbr = np.array([[1], [0]], np.int32)
     flow = np.zeros((FNY, FNX, 3))
-    conventions_phase(pos, vel, np.array([0.25, 0.25]), np.array([1, 2], np.int32), nav, nbr,
-                      np.array([1, 1], np.int32), 0.5, math.cos(math.radians(30.0)), math.radians(keep), flow,
-                      FOX, FOY, FCELL, 10.0, 0.0, 0, 0, pref)
+    conventions_phase(pos, vel, np.array([0.25, 0.25]), np.array([1, 2], np.int32), np.array(targets, np.int32),
+                      nav, nbr, np.array([1, 1], np.int32), 0.5, math.cos(math.radians(30.0)), math.radians(keep),
+                      flow, FOX, FOY, FCELL, 10.0, 0.0, 0, 0, pref)
     return pref[0]
 
 
@@ -121,6 +123,11 @@ def test_keep_right_turns_clockwise_for_oncoming():
     p = _pair([-1.0, 0.0], keep=25.0)
     assert math.isclose(math.hypot(*p), 1.3) and p[1] < 0       # turned to the right of +x
     assert math.isclose(math.degrees(math.atan2(p[1], p[0])), -25.0)
+
+
+def test_keep_right_ignores_someone_bound_for_the_same_target():
+    # converging on one door is not meeting head-on: no turn
+    assert np.allclose(_pair([-1.0, 0.0], keep=25.0, targets=(0, 0)), [1.3, 0.0])
 
 
 def test_jostle_angle_is_a_pure_function_of_seed_id_and_half_second():

@@ -16,17 +16,12 @@ def test_demographic_speeds_reproduce_input():
     assert r["passed"], r["values"]
 
 
-@pytest.mark.xfail(reason="model: with keep-right lanes 0/4/20 opposing persons pass, but 40 against 40 in the "
-                          "2 m corridor can still lock in a dense ORCA standstill (open; see the closing note)",
-                   strict=False)
 def test_counterflow_last_arrival_rises():
     # IMO MSC.1/Circ.1533 test 8 [M], reduced to 40 persons with 0/4/20/40 against them
     r = verify.case_counterflow(quick=True)
     assert r["passed"], r["values"]
 
 
-@pytest.mark.xfail(reason="model: a 0.8 m opening jams (dense ORCA standstill at the door frame) and 1.6 m "
-                          "sometimes does; 2.4 m gives about 1.2 /(m s) (open; see the closing note)", strict=False)
 def test_bottleneck_specific_flow_band_and_linear():
     # Seyfried et al. 2009 [V] linear growth; lab flows 1.6-2.0 [M]; Hoogendoorn & Daamen 2005 [V, D];
     # 115 persons per metre of width (Liao et al. [V]); band 1.0-2.0 /(m s)

@@ -253,10 +253,12 @@ def orca_phase(pos, vel, radius, max_speed, pref_vel, nbr, nbr_count, walls, wal
     the capacity L = lines.shape[1] are dropped, walls kept first) and v_safe[i].
 
     queue_gap > 0: agent i counts its own radius larger by queue_gap * cos(angle between its route
-    nav_dir[i] and the direction to j) for a neighbour j ahead of it, so a waiting queue keeps that
-    much room and stays loose. Without it the crowd behind a door packed to zero gaps, where every
-    ORCA program admits only v = 0, and the crowd froze for good. Bodies (guard, invariants) keep
-    their true radius; queue_gap = 0 is plain ORCA.
+    nav_dir[i] and the direction to j) * (1 - |v_i|/|v_pref_i|) for a neighbour j ahead of it, so a
+    waiting queue keeps that much room and stays loose. Without it the crowd behind a door packed to
+    zero gaps, where every ORCA program admits only v = 0, and the crowd froze for good. Scaled by how
+    much the agent is held up, it leaves walking crowds alone (their spacing is the headway rule's
+    job): unscaled, it bound the ORCA programs of 18% instead of 3% of a walking 1/m^2 crowd and made
+    the step 30% slower. Bodies (guard, invariants) keep their true radius; queue_gap = 0 is plain ORCA.
 
     The per-agent body is written out in the loop: a helper taking a dozen arrays paid two atomic
     reference-count updates per array per agent, more than the half-plane arithmetic."""
@@ -296,12 +298,17 @@ def orca_phase(pos, vel, radius, max_speed, pref_vel, nbr, nbr_count, walls, wal
                     continue
                 ri = r
                 if queue_gap > 0.0:
-                    # keep queue_gap from whoever is ahead along the route (scaled by how far ahead)
+                    # keep queue_gap from whoever is ahead along the route (scaled by how far ahead, and
+                    # by how much this agent is held up)
                     ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
                     dd = np.sqrt(ddx * ddx + ddy * ddy)
                     ahead = ddx * nav_dir[i, 0] + ddy * nav_dir[i, 1]
                     if dd > 0.0 and ahead > 0.0:
-                        ri = r + queue_gap * min(ahead / dd, 1.0)
+                        ps2 = pref_vel[i, 0] * pref_vel[i, 0] + pref_vel[i, 1] * pref_vel[i, 1]
+                        slow = 1.0
+                        if ps2 > 0.0:
+                            slow = min(max(1.0 - np.sqrt((vx * vx + vy * vy) / ps2), 0.0), 1.0)
+                        ri = r + queue_gap * min(ahead / dd, 1.0) * slow
                 qx, qy, dx, dy = agent_line(i, j, px, py, vx, vy, ri, pos[j, 0], pos[j, 1], vel[j, 0], vel[j, 1],
                                             radius[j], tau, dt)
                 ln[m, 0], ln[m, 1], ln[m, 2], ln[m, 3] = qx, qy, dx, dy

@@ -151,9 +151,9 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
       degrees). This is what makes speed fall with density. Standing people and people crossing the
       path are left to avoidance: counting them let crossing streams wait for each other for ever.
     - keep right: with someone walking towards it ahead (a neighbour bound for another target, or an
-      opposing mean flow in the flow grid up to look_ahead metres along its route), an agent turns its preferred direction by
-      keep_right radians clockwise, so opposing streams pass left side to left side and form lanes
-      before they meet instead of locking head-on.
+      opposing mean flow in the flow grid up to look_ahead metres along its route), an agent turns its
+      preferred direction by keep_right radians clockwise, so opposing streams pass left side to left
+      side and form lanes before they meet instead of locking head-on.
     - jostle: an agent that is pressed against a neighbour and barely moving turns its preferred
       direction by a pseudo-random angle up to +-jostle radians, redrawn every half second. People
       in a jam shuffle; without it, an arch of agents at a narrow door would hold for ever. The

@@ -152,56 +152,75 @@ def case_demographics(quick, out_dir=None):
         "criteria": "every agent within 10% of its assigned speed; sorted speeds within 0.10 m/s"}}
 
 
+COUNTERFLOW_SEEDS = (8, 1, 2, 3, 4)
+
+
+def _counterflow_run(seed, main, m, cap_frames):
+    """Last arrival time (s) of the `main` group walking east against m walking west; None if one never arrives."""
+    w = _world(seed=seed)
+    # room A x 0..10, corridor x 10..20 (y 4..6), room B x 20..30
+    w.add_wall([[10, 4], [10, 0], [0, 0], [0, 10], [10, 10], [10, 6], [20, 6], [20, 10], [30, 10], [30, 0],
+                [20, 0], [20, 4], [10, 4]], closed=True)
+    east = w.add_target("east", "rect", (28.5, 0.5, 29.8, 9.5))
+    west = w.add_target("west", "rect", (0.2, 0.5, 1.5, 9.5))
+    from .placement import place_in_rect
+    segs = w.scene.segments()
+    a = place_in_rect(w.rng, (1.8, 0.2, 9.8, 9.8), main, 0.25, 0.05, segs, [])
+    b = place_in_rect(w.rng, (20.2, 0.2, 28.2, 9.8), m, 0.25, 0.05, segs, []) if m else np.zeros((0, 2))
+    sp = np.clip(w.rng.normal(1.34, 0.26, len(a) + len(b)), 0.8, 1.8)
+    ids_a = w.add_agents(a, target=east, pref_speed=sp[:len(a)])
+    if m:
+        w.add_agents(b, target=west, pref_speed=sp[len(a):])
+    need = set(ids_a.tolist())
+    done = 0
+    for _ in range(cap_frames):
+        w.step(0.1)
+        done += len(need.intersection(w.last_arrived.tolist()))
+        if done == len(need):
+            return done, len(need), w.time
+    return done, len(need), None
+
+
 def case_counterflow(quick, out_dir=None):
     """IMO test 8 [M]: rooms 10 m x 10 m joined by a 10 m x 2 m corridor; 100 persons one way with 0, 10,
-    50, 100 the other way; the last arrival time of the main group must rise with the counterflow."""
+    50, 100 the other way; the last arrival time of the main group must rise with the counterflow.
+
+    The last arrival is one extreme value: between seeds it moves by up to 10 s (measured), more than the
+    step from 20 to 40 opposing persons in the reduced case. So each level runs with the seeds in
+    COUNTERFLOW_SEEDS and the mean last arrival must rise; every single run must still see everyone
+    arrive (a gridlock fails the case)."""
     main = 40 if quick else 100
     others = [0, 4, 20, 40] if quick else [0, 10, 50, 100]
     cap_frames = 1500 if quick else 3000
     results = []
     for m in others:
-        w = _world(seed=8)
-        # room A x 0..10, corridor x 10..20 (y 4..6), room B x 20..30
-        w.add_wall([[10, 4], [10, 0], [0, 0], [0, 10], [10, 10], [10, 6], [20, 6], [20, 10], [30, 10], [30, 0],
-                    [20, 0], [20, 4], [10, 4]], closed=True)
-        east = w.add_target("east", "rect", (28.5, 0.5, 29.8, 9.5))
-        west = w.add_target("west", "rect", (0.2, 0.5, 1.5, 9.5))
-        from .placement import place_in_rect
-        segs = w.scene.segments()
-        a = place_in_rect(w.rng, (1.8, 0.2, 9.8, 9.8), main, 0.25, 0.05, segs, [])
-        b = place_in_rect(w.rng, (20.2, 0.2, 28.2, 9.8), m, 0.25, 0.05, segs, []) if m else np.zeros((0, 2))
-        sp = np.clip(w.rng.normal(1.34, 0.26, len(a) + len(b)), 0.8, 1.8)
-        ids_a = w.add_agents(a, target=east, pref_speed=sp[:len(a)])
-        if m:
-            w.add_agents(b, target=west, pref_speed=sp[len(a):])
-        need = set(ids_a.tolist())
-        done = 0
-        t_last = None
-        for _ in range(cap_frames):
-            w.step(0.1)
-            done += len(need.intersection(w.last_arrived.tolist()))
-            if done == len(need):
-                t_last = w.time
-                break
-        results.append({"counterflow": m, "arrived": done, "of": len(need),
-                        "last_arrival_s": round(t_last, 1) if t_last is not None else None})
-    times = [r["last_arrival_s"] if r["last_arrival_s"] is not None else math.inf for r in results]
-    rising = all(b >= a for a, b in zip(times, times[1:])) and times[-1] > times[0]
+        runs = [_counterflow_run(seed, main, m, cap_frames) for seed in COUNTERFLOW_SEEDS]
+        times = [t for _d, _n, t in runs]
+        results.append({"counterflow": m, "arrived": sum(d for d, _n, _t in runs), "of": sum(n for _d, n, _t in runs),
+                        "last_arrival_s": [round(t, 1) if t is not None else None for t in times],
+                        "mean_last_arrival_s": (round(float(np.mean(times)), 1) if None not in times else None)})
+    means = [r["mean_last_arrival_s"] if r["mean_last_arrival_s"] is not None else math.inf for r in results]
+    rising = all(b >= a for a, b in zip(means, means[1:])) and means[-1] > means[0]
     # a gridlock (someone never arrives) is a failure, not an infinitely late arrival
-    passed = rising and all(math.isfinite(t) for t in times)
+    passed = rising and all(math.isfinite(t) for t in means)
     plot = None
     if out_dir:
         import matplotlib.pyplot as plt
         fig, ax = plt.subplots(figsize=(5, 4))
-        capped = [t if math.isfinite(t) else cap_frames * 0.1 for t in times]
-        ax.plot(others, capped, "o-")
+        capped = [t if math.isfinite(t) else cap_frames * 0.1 for t in means]
+        for k, seed in enumerate(COUNTERFLOW_SEEDS):
+            one = [r["last_arrival_s"][k] if r["last_arrival_s"][k] is not None else cap_frames * 0.1 for r in results]
+            ax.plot(others, one, ".", color="0.6", label="single runs" if k == 0 else None)
+        ax.plot(others, capped, "o-", label=f"mean of {len(COUNTERFLOW_SEEDS)} seeds")
         ax.set_xlabel("persons in counterflow")
         ax.set_ylabel(f"last arrival of the {main} (s)")
+        ax.legend(fontsize=8)
         ax.set_title("IMO test 8: counterflow")
         plot = _save(fig, out_dir, "counterflow.png")
-    return {"passed": passed, "plot": plot, "values": {"main_group": main, "runs": results,
-                                                        "cap_s": cap_frames * 0.1, "rises": rising,
-                                                        "criteria": "all arrive within the cap; last arrival rises"}}
+    return {"passed": passed, "plot": plot, "values": {"main_group": main, "seeds": list(COUNTERFLOW_SEEDS),
+                                                        "runs": results, "cap_s": cap_frames * 0.1, "rises": rising,
+                                                        "criteria": "everyone arrives within the cap in every run; the "
+                                                                    "mean last arrival over the seeds rises"}}
 
 
 def _lattice(rho, x0, x1, y0, y1, r, rng):

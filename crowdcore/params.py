@@ -50,7 +50,11 @@ class Params:
                                           # its route in ORCA, so a waiting queue stays loose (0 = off; 0 froze
                                           # a 0.8 m door for good; 0.2 still jammed it in 1 of 6 seeds; tuned)
     max_dt: float = 1.0                   # larger steps are refused
-    headway_time: float = 0.5             # s; plan no faster than gap ahead / this (0 = off)
+    headway_time: float = 0.6             # s; plan no faster than gap ahead / this (0 = off; tuned: 0.5 let a
+                                          # 2.4 /m^2 crowd walk 0.78 m/s, above Weidmann's band, once
+                                          # overtaking freed thin crowds from slow walkers)
+    overtake: float = 20.0                # degrees to turn left to pass a slower leader when the left is free
+                                          # (0 = off; tuned, no source)
     headway_cone: float = 30.0            # degrees either side of the route that count as "ahead"
     keep_right: float = 45.0              # degrees to turn right when someone walks towards you (0 = off; tuned,
                                           # no source: 25 let 20 or 40 against 40 lock in a 2 m corridor)
@@ -83,6 +87,7 @@ class Params:
             if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= hi:
                 bad(key, f"must be an integer in 0..{hi}, got {v!r}")
         for key, hi in (("queue_gap", 1.0), ("headway_time", 10.0), ("headway_cone", 90.0), ("keep_right", 90.0),
+                        ("overtake", 90.0),
                         ("look_ahead", 50.0), ("jostle", 180.0)):
             v = getattr(self, key)
             if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or not 0 <= v <= hi:

@@ -143,8 +143,8 @@ def flow_grid(pos, vel, ox, oy, cell, nx, ny, flow):
 
 @parallel_kernel
 def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, headway_time, cos_cone, keep_right,
-                      flow, fox, foy, fcell, look_ahead, jostle, seed, frame, pref_vel):
-    """Two walking conventions that shape the preferred velocity (own row only):
+                      flow, fox, foy, fcell, look_ahead, jostle, seed, frame, pref_vel, overtake=0.0):
+    """Walking conventions that shape the preferred velocity (own row only):
 
     - time headway: an agent plans no faster than gap / headway_time, where gap is the surface gap to
       the nearest neighbour ahead (in the cone around its route) that walks the same way (within 60
@@ -154,6 +154,11 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
       opposing mean flow in the flow grid up to look_ahead metres along its route), an agent turns its
       preferred direction by keep_right radians clockwise, so opposing streams pass left side to left
       side and form lanes before they meet instead of locking head-on.
+    - overtake: when the headway would slow an agent behind a leader walking slower than 0.85 of the
+      agent's own preferred speed, and nobody is on its left from 0.5 m behind to 1 m past the leader
+      (within the two radii plus 0.3 m), it keeps its speed and turns overtake radians anticlockwise to
+      pass on the left. Without it a slow walker held everyone behind it, and a thin crowd (0.5 /m^2)
+      walked at 0.91 m/s, below Weidmann's band; with it 1.14.
     - jostle: an agent that is pressed against a neighbour and barely moving turns its preferred
       direction by a pseudo-random angle up to +-jostle radians, redrawn every half second. People
       in a jam shuffle; without it, an arch of agents at a narrow door would hold for ever. The
@@ -167,6 +172,9 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
         if ex * ex + ey * ey == 0.0:
             continue
         limit = np.inf
+        lead = -1
+        lead_along = 0.0
+        lead_ahead = 0.0
         oncoming = False
         for s in range(nbr_count[i]):
             j = nbr[i, s]
@@ -189,7 +197,12 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
             if vj2 <= 0.01 or along * along < 0.25 * vj2:
                 continue          # standing, or crossing our path: avoidance handles it
             if headway_time > 0.0:
-                limit = min(limit, max(0.0, d - radius[i] - radius[j]) / headway_time)
+                lj = max(0.0, d - radius[i] - radius[j]) / headway_time
+                if lj < limit:
+                    limit = lj
+                    lead = j
+                    lead_along = along
+                    lead_ahead = ahead
         stuck = False
         if jostle != 0.0 and vel[i, 0] * vel[i, 0] + vel[i, 1] * vel[i, 1] < 0.04 * (
                 pref_vel[i, 0] * pref_vel[i, 0] + pref_vel[i, 1] * pref_vel[i, 1]):
@@ -214,7 +227,21 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
                         break
         px, py = pref_vel[i, 0], pref_vel[i, 1]
         sp = math.sqrt(px * px + py * py)
-        if sp > limit:
+        passing = False
+        if overtake != 0.0 and lead >= 0 and sp > limit and lead_along < 0.85 * sp:
+            passing = True
+            for s in range(nbr_count[i]):
+                j = nbr[i, s]
+                dx, dy = pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]
+                a_j = dx * ex + dy * ey
+                l_j = ex * dy - ey * dx
+                if -0.5 < a_j < lead_ahead + 1.0 and 0.0 < l_j < radius[i] + radius[j] + 0.3:
+                    passing = False
+                    break
+        if passing:
+            co, so = np.cos(overtake), np.sin(overtake)
+            px, py = co * px - so * py, so * px + co * py
+        elif sp > limit:
             f = limit / sp
             px *= f
             py *= f

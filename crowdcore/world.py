@@ -387,7 +387,7 @@ class World:
         nav_dir = np.empty((n, 2))
         phases.navigate_phase(pos, a["pref_speed"], a["target"], nav.dir, nav.ox, nav.oy, nav.h, nav.nx, nav.ny,
                               pref_vel, nav_dir)
-        if p.headway_time > 0 or p.keep_right > 0 or p.jostle > 0:
+        if p.headway_time > 0 or p.keep_right > 0 or p.jostle > 0:  # overtaking only lifts the headway cap
             fg = self._flow_grid
             flow = np.empty((fg.ny, fg.nx, 3))
             phases.flow_grid(pos, vel, *fg.args, flow)
@@ -395,7 +395,7 @@ class World:
                                      p.headway_time,
                                      math.cos(math.radians(p.headway_cone)), math.radians(p.keep_right),
                                      flow, fg.ox, fg.oy, fg.cell, p.look_ahead, math.radians(p.jostle),
-                                     self.seed & 0xFFFFFFFFFFFFFFFF, self.frame, pref_vel)
+                                     self.seed & 0xFFFFFFFFFFFFFFFF, self.frame, pref_vel, math.radians(p.overtake))
         v_group = np.empty((n, 2))
         phases.group_pull_phase(pos, a["group"], self._group_centres(), pref_vel, a["pref_speed"], v_group)
         t3 = t(); ms["navigate"] = t3 - t2

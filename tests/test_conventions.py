@@ -19,13 +19,13 @@ def ref_flow(pos, vel):
 
 
 def ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, cone_deg, keep_deg, flow, look, jostle_deg, seed,
-                    frame):
+                    frame, overtake_deg=0.0):
     out = pref.copy()
     for i in range(len(pos)):
         e = nav[i]
         if e[0] == 0 and e[1] == 0:
             continue
-        limit, oncoming = math.inf, False
+        limit, oncoming, lead_along, lead_ahead = math.inf, False, 0.0, 0.0
         for j in nbrs[i]:
             d_vec = pos[j] - pos[i]
             d = math.sqrt(d_vec[0] * d_vec[0] + d_vec[1] * d_vec[1])
@@ -41,8 +41,9 @@ def ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, cone_deg,
             vj2 = vel[j, 0] ** 2 + vel[j, 1] ** 2
             if vj2 <= 0.01 or along * along < 0.25 * vj2:
                 continue
-            if T > 0:
-                limit = min(limit, max(0.0, d - radius[i] - radius[j]) / T)
+            if T > 0 and max(0.0, d - radius[i] - radius[j]) / T < limit:
+                limit = max(0.0, d - radius[i] - radius[j]) / T
+                lead_along, lead_ahead = along, ahead
         stuck = jostle_deg != 0 and vel[i] @ vel[i] < 0.04 * (pref[i] @ pref[i]) and any(
             math.sqrt((pos[j] - pos[i]) @ (pos[j] - pos[i])) - radius[i] - radius[j] < 0.05 for j in nbrs[i])
         if not oncoming and keep_deg != 0:
@@ -55,7 +56,14 @@ def ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, cone_deg,
                     break
         p = pref[i].copy()
         sp = math.sqrt(p[0] * p[0] + p[1] * p[1])
-        if sp > limit:
+        # overtaking: a slower leader sets the cap and nobody is on the left, from 0.5 m behind to 1 m past it
+        left_free = all(not (-0.5 < (pos[j] - pos[i]) @ e < lead_ahead + 1.0
+                             and 0 < e[0] * (pos[j] - pos[i])[1] - e[1] * (pos[j] - pos[i])[0]
+                             < radius[i] + radius[j] + 0.3) for j in nbrs[i]) if limit < math.inf else False
+        if overtake_deg != 0 and sp > limit and lead_along < 0.85 * sp and left_free:
+            a = math.radians(overtake_deg)        # anticlockwise: pass on the left, at full speed
+            p = np.array([math.cos(a) * p[0] - math.sin(a) * p[1], math.sin(a) * p[0] + math.cos(a) * p[1]])
+        elif sp > limit:
             p *= limit / sp
         if oncoming and keep_deg != 0:
             a = -math.radians(keep_deg)          # clockwise
@@ -69,8 +77,8 @@ def ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, cone_deg,
 
 @settings(max_examples=80, deadline=None, derandomize=True)
 @given(st.integers(0, 10**6), st.integers(1, 25), st.sampled_from([0.0, 0.5]), st.sampled_from([0.0, 25.0]),
-       st.sampled_from([0.0, 30.0]), st.integers(0, 40))
-def test_kernel_equals_reference(seed, n, T, keep, jostle, frame):
+       st.sampled_from([0.0, 30.0]), st.integers(0, 40), st.sampled_from([0.0, 20.0]))
+def test_kernel_equals_reference(seed, n, T, keep, jostle, frame, overtake):
     rng = np.random.default_rng(seed)
     pos = rng.uniform(-4, 6, (n, 2))
     vel = rng.normal(0, 0.8, (n, 2)) * rng.integers(0, 2, (n, 1))        # some agents stand still
@@ -95,8 +103,9 @@ def test_kernel_equals_reference(seed, n, T, keep, jostle, frame):
     assert np.allclose(flow, ref_flow(pos, vel), rtol=0, atol=1e-12)
     got = pref.copy()
     conventions_phase(pos, vel, radius, ids, target, nav, nbr, cnt, T, math.cos(math.radians(30.0)), math.radians(keep),
-                      flow, FOX, FOY, FCELL, 10.0, math.radians(jostle), seed, frame, got)
-    want = ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, 30.0, keep, flow, 10.0, jostle, seed, frame)
+                      flow, FOX, FOY, FCELL, 10.0, math.radians(jostle), seed, frame, got, math.radians(overtake))
+    want = ref_conventions(pos, vel, radius, ids, target, nav, nbrs, pref, T, 30.0, keep, flow, 10.0, jostle, seed, frame,
+                           overtake)
     assert np.allclose(got, want, rtol=0, atol=1e-12)
 
 
@@ -128,6 +137,29 @@ def test_keep_right_turns_clockwise_for_oncoming():
 def test_keep_right_ignores_someone_bound_for_the_same_target():
     # converging on one door is not meeting head-on: no turn
     assert np.allclose(_pair([-1.0, 0.0], keep=25.0, targets=(0, 0)), [1.3, 0.0])
+
+
+def _follow(leader_speed, left_neighbour=False, overtake=20.0):
+    # agent 0 at the origin walking +x behind a leader 0.8 m ahead; optionally someone at its left shoulder
+    pos = [[0.0, 0.0], [0.8, 0.0]] + ([[0.3, 0.55]] if left_neighbour else [])
+    vel = [[1.0, 0.0], [leader_speed, 0.0]] + ([[1.0, 0.0]] if left_neighbour else [])
+    n = len(pos)
+    pos, vel = np.array(pos), np.array(vel)
+    nav = np.tile([1.0, 0.0], (n, 1))
+    pref = np.tile([1.3, 0.0], (n, 1))
+    nbr = np.array([[j for j in range(n) if j != i] for i in range(n)], np.int32)
+    conventions_phase(pos, vel, np.full(n, 0.25), np.arange(1, n + 1, dtype=np.int32), np.zeros(n, np.int32), nav,
+                      nbr, np.full(n, n - 1, np.int32), 0.5, math.cos(math.radians(30.0)), 0.0,
+                      np.zeros((FNY, FNX, 3)), FOX, FOY, FCELL, 10.0, 0.0, 0, 0, pref, math.radians(overtake))
+    return pref[0]
+
+
+def test_overtake_passes_a_slower_leader_on_the_left_when_free():
+    p = _follow(0.6)                                            # leader at 0.6 < 0.85 x 1.3 m/s
+    assert math.isclose(math.hypot(*p), 1.3) and math.isclose(math.degrees(math.atan2(p[1], p[0])), 20.0)
+    assert np.allclose(_follow(0.6, left_neighbour=True), [0.6, 0.0])   # left blocked: the headway holds (0.3/0.5)
+    assert np.allclose(_follow(1.2), [0.6, 0.0])                # leader nearly as fast: follow, do not pass
+    assert np.allclose(_follow(0.6, overtake=0.0), [0.6, 0.0])  # off
 
 
 def test_jostle_angle_is_a_pure_function_of_seed_id_and_half_second():

@@ -365,7 +365,7 @@ def _clip(poly, src, n, hx, hy, h0):
 
 @kernel
 def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start, k0, k1, fl, fb,
-                     poly, gx, gy):
+                     poly, gx, gy, all_lines):
     """Strict mode: a conservative outline, in the heading frame q = R(-theta) u, of where eligible
     records can lie. Fills fb with a q box (x0, x1, y0, y1) holding every eligible record of buckets
     k0..k1 and returns the number of half-planes written to fl (rows hx, hy, h0: a record is surely
@@ -375,9 +375,11 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket
     Each half-plane is relaxed by 1e-9 of its own scale, about 1e7 times the rounding that separates
     these tests from `_allowed`, so they never reject a record `_allowed` accepts.
 
-    Only the lines that the quadratic centre (gx, gy) breaks are used: the best record lies beyond them,
-    while the others pass near the centre and cut little. Leaving lines out only widens the outline,
-    so it stays conservative, and clipping by 1-3 lines instead of about 10 is what makes it pay.
+    Unless all_lines, only the lines that the quadratic centre (gx, gy) breaks are used: the best record
+    lies beyond them, while the others pass near the centre and cut little. Leaving lines out only
+    widens the outline, so it stays conservative, and clipping by 1-3 lines instead of about 10 is what
+    makes it pay. all_lines is for agents whose avoidance velocity breaks a line: their region may be
+    empty, and only every line together can show it (then nothing is searched at all).
     """
     fb[0] = -np.inf
     fb[1] = np.inf
@@ -392,7 +394,7 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket
         py = lines[i, j, 1]
         ldx = lines[i, j, 2]
         ldy = lines[i, j, 3]
-        if ldx * (py - gy) - ldy * (px - gx) <= 0.0:
+        if not all_lines and ldx * (py - gy) - ldy * (px - gx) <= 0.0:
             continue
         hx = ldy * ct - ldx * st
         hy = -(ldx * ct + ldy * st)
@@ -599,8 +601,13 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                     fb[3] = np.inf
                     nf = 0
                 else:
+                    safe_ok = True  # does v_safe pass every line (the contract's test)? Then the region is not empty
+                    for j in range(nl):
+                        if lines[i, j, 2] * (lines[i, j, 1] - vsy) - lines[i, j, 3] * (lines[i, j, 0] - vsx) > LINE_EPS:
+                            safe_ok = False
+                            break
                     nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start,
-                                          k0, k1, fl, fb, poly, gx, gy)
+                                          k0, k1, fl, fb, poly, gx, gy, not safe_ok)
                 if nf < 0:
                     k1 = k0 - 1
                     nf = 0

@@ -160,11 +160,6 @@ def _slot(h):
     raise _Fail(ERR_HANDLE, f"world handle {h:#x}: not a live world (0, destroyed, or never created)")
 
 
-def live_worlds():
-    """How many worlds the library holds (for tests and leak checks)."""
-    return sum(1 for s in _slots if s.world is not None)
-
-
 def _bind(ffi, lib):
     """Register every extern "Python" bridge function; called once by the embedded init code."""
     import inspect

@@ -556,11 +556,7 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                 gy = ty / W
                 # Most agents' quadratic centre is itself eligible: then the best record lies near it,
                 # inside every half-plane, and building the feasible outline would cost more than it saves.
-                c_eligible = True
-                for j in range(nl):
-                    if lines[i, j, 2] * (lines[i, j, 1] - gy) - lines[i, j, 3] * (lines[i, j, 0] - gx) > 0.0:
-                        c_eligible = False
-                        break
+                c_eligible = _allowed(gx, gy, strict, lines, i, nl)
                 C0 = pp - W * (gx * gx + gy * gy)
                 cx = ct * gx + st * gy
                 cy = -st * gx + ct * gy
@@ -601,13 +597,9 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                     fb[3] = np.inf
                     nf = 0
                 else:
-                    safe_ok = True  # does v_safe pass every line (the contract's test)? Then the region is not empty
-                    for j in range(nl):
-                        if lines[i, j, 2] * (lines[i, j, 1] - vsy) - lines[i, j, 3] * (lines[i, j, 0] - vsx) > LINE_EPS:
-                            safe_ok = False
-                            break
+                    # v_safe passing every line means the region is not empty: clipping by the centre's lines will do
                     nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start,
-                                          k0, k1, fl, fb, poly, gx, gy, not safe_ok)
+                                          k0, k1, fl, fb, poly, gx, gy, not _allowed(vsx, vsy, strict, lines, i, nl))
                 if nf < 0:
                     k1 = k0 - 1
                     nf = 0

@@ -47,7 +47,12 @@ def check_coeffs(coeffs, where="budget_coeffs"):
 
 def estimate_ms(n, k, z, coeffs):
     """Predicted ms per frame for n agents, K neighbours and search width z (pure, deterministic)."""
-    c0, ca, cn, cb, cw = check_coeffs(coeffs)
+    return _estimate(n, k, z, check_coeffs(coeffs))
+
+
+def _estimate(n, k, z, coeffs):
+    """estimate_ms on 5 checked coefficients: plan() validates once per frame, not once per trial."""
+    c0, ca, cn, cb, cw = coeffs
     return c0 + n * (ca + cn * k + cb * (2 * z + 1) + (cw if z > 0 else 0.0))
 
 
@@ -65,24 +70,25 @@ def plan(n, budget_ms, coeffs, z_max=3, k_min=4, k_max=10):
     coeffs = check_coeffs(coeffs)
     budget_ms = HEADROOM * budget_ms
     for z in range(z_max, -1, -1):
-        if estimate_ms(n, k_max, z, coeffs) <= budget_ms:
+        if _estimate(n, k_max, z, coeffs) <= budget_ms:
             return z, k_max
     for k in range(k_max - 1, k_min - 1, -1):
-        if estimate_ms(n, k, 0, coeffs) <= budget_ms:
+        if _estimate(n, k, 0, coeffs) <= budget_ms:
             return 0, k
     return 0, k_min
 
 
 def max_agents(budget_ms, coeffs, k, z):
     """Largest n whose estimate fits budget_ms at (K, z), by the model; 0 if none."""
-    c0, ca, cn, cb, cw = check_coeffs(coeffs)
+    coeffs = check_coeffs(coeffs)
+    c0, ca, cn, cb, cw = coeffs
     per = ca + cn * k + cb * (2 * z + 1) + (cw if z > 0 else 0.0)
     if budget_ms < c0:
         return 0
     if per <= 0:
         return 2**31 - 1
     n = int((budget_ms - c0) / per)
-    while n > 0 and estimate_ms(n, k, z, coeffs) > budget_ms:  # guard the float division
+    while n > 0 and _estimate(n, k, z, coeffs) > budget_ms:  # guard the float division
         n -= 1
     return n
 

@@ -172,7 +172,6 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
         if ex * ex + ey * ey == 0.0:
             continue
         limit = np.inf
-        lead = -1
         lead_along = 0.0
         lead_ahead = 0.0
         oncoming = False
@@ -200,7 +199,6 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
                 lj = max(0.0, d - radius[i] - radius[j]) / headway_time
                 if lj < limit:
                     limit = lj
-                    lead = j
                     lead_along = along
                     lead_ahead = ahead
         stuck = False
@@ -228,7 +226,7 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
         px, py = pref_vel[i, 0], pref_vel[i, 1]
         sp = math.sqrt(px * px + py * py)
         passing = False
-        if overtake != 0.0 and lead >= 0 and sp > limit and lead_along < 0.85 * sp:
+        if overtake != 0.0 and sp > limit and lead_along < 0.85 * sp:  # sp > limit: some leader set the cap
             passing = True
             for s in range(nbr_count[i]):
                 j = nbr[i, s]

@@ -8,6 +8,20 @@ from crowdcore.spatial import HashGrid, build_hash, build_wall_grid, knn_phase, 
 WALLS = np.array([[0, 0, 8, 0], [8, 0, 8, 8], [8, 8, 0, 8], [0, 8, 0, 0], [3, 3, 5, 4.5]], float)
 
 
+def _neighbours(pos, ids, cell, k, wall_reach):
+    """Hash grid, K nearest within `cell` and the wall grid, as a world step builds them."""
+    g = HashGrid.covering(-1, -1, 9, 9, cell)
+    start = np.zeros(g.nx * g.ny + 1, np.int32)
+    items = np.zeros(len(pos), np.int32)
+    build_hash(pos, *g.args, start, items)
+    nbr = np.zeros((len(pos), k), np.int32)
+    cnt = np.zeros(len(pos), np.int32)
+    knn_phase(pos, ids, start, items, *g.args, cell, nbr, cnt)
+    wg = HashGrid.covering(-1, -1, 9, 9, 2.0)
+    ws, wi = build_wall_grid(WALLS, wg, wall_reach)
+    return g, start, items, nbr, cnt, wg, ws, wi
+
+
 def _setup(seed, n, k):
     rng = np.random.default_rng(seed)
     pos = []
@@ -24,16 +38,7 @@ def _setup(seed, n, k):
     ids = rng.permutation(np.arange(1, m + 1)).astype(np.int32)
     vmax = rng.uniform(0.8, 2.2, m)
     v = rng.normal(0, 1.5, (m, 2))                  # adversarial velocities, often straight into others
-    g = HashGrid.covering(-1, -1, 9, 9, 2.5)
-    start = np.zeros(g.nx * g.ny + 1, np.int32)
-    items = np.zeros(m, np.int32)
-    build_hash(P, *g.args, start, items)
-    nbr = np.zeros((m, k), np.int32)
-    cnt = np.zeros(m, np.int32)
-    knn_phase(P, ids, start, items, *g.args, 2.5, nbr, cnt)
-    wg = HashGrid.covering(-1, -1, 9, 9, 2.0)
-    ws, wi = build_wall_grid(WALLS, wg, 0.0)
-    return P, R, ids, vmax, v, g, start, items, nbr, cnt, wg, ws, wi
+    return (P, R, ids, vmax, v) + _neighbours(P, ids, 2.5, k, 0.0)
 
 
 def _guard(P, R, ids, vmax, v, g, start, items, nbr, cnt, wg, ws, wi, dt):
@@ -97,15 +102,7 @@ def _pinned_outputs():
     vmax = rng.uniform(0.8, 2.2, n)
     pref = rng.normal(0, 1.2, (n, 2))
     pref[::3] *= 1e-3                                # mostly allowed: the guard returns these unchanged
-    g = HashGrid.covering(-1, -1, 9, 9, 1.2)
-    start = np.zeros(g.nx * g.ny + 1, np.int32)
-    items = np.zeros(n, np.int32)
-    build_hash(pos, *g.args, start, items)
-    nbr = np.zeros((n, k), np.int32)
-    cnt = np.zeros(n, np.int32)
-    knn_phase(pos, ids, start, items, *g.args, 1.2, nbr, cnt)
-    wg = HashGrid.covering(-1, -1, 9, 9, 2.0)
-    ws, wi = build_wall_grid(WALLS, wg, 0.01)
+    g, start, items, nbr, cnt, wg, ws, wi = _neighbours(pos, ids, 1.2, k, 0.01)
     lines = np.zeros((n, cap, 4))
     lc = np.zeros(n, np.int32)
     vs = np.zeros((n, 2))

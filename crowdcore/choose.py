@@ -31,6 +31,15 @@ times the rounding between these tests and `_allowed`, which still decides every
 
 Each bucket's tree holds one copy of records with bitwise-identical (a, b, phi): a later copy has
 the same energy and velocity, so the full scan (first strictly smaller energy wins) never picks it.
+
+Two things make the search fast in practice without touching what it returns:
+- Window forests. Searching 2z+1 separate bucket trees means 2z+1 descents. For 1 <= z <= 8 the
+  index builds, on first use of that z, one tree per bucket k over all records of buckets k-z..k+z
+  (the agent's whole window), so each agent descends one tree. Records are stored 2z+1 times
+  (about 30 MB at z = 3 for 80,000 records), and the choice runs 1.5-1.8x faster (square-1 and
+  square-2, 10,000 agents, one thread).
+- Agents are searched grouped by speed bucket, so consecutive searches walk the same tree, which
+  stays in cache: about 10% faster. Each agent's result does not depend on the order.
 """
 import math
 
@@ -238,43 +247,54 @@ def choose_full(a, b, phi, bucket_start, bucket_min_a, weights, z, strict, v_now
 # Index: one implicit, balanced k-d tree over q_r per bucket
 
 @kernel
-def _build_trees(a, b, phi, bucket_start, items, item_start, leaf_size):
-    """Returns (perm, bucket_node_start, node_range, node_box).
-
-    Bucket k indexes the records items[item_start[k]:item_start[k+1]] (ascending record indices).
-    perm: tree order -> record index. Bucket k owns nodes bucket_node_start[k]..[k+1]; local node j
-    has children 2j+1, 2j+2 and is a leaf when 2j+1 is past the end. Nodes split their range at the
-    middle along the wider q axis, so all leaves of a bucket sit at one depth with <= leaf_size records.
-    """
-    n = a.shape[0]
-    nb = bucket_start.shape[0] - 1
-    qx = np.empty(n)
-    qy = np.empty(n)
-    for r in range(n):
-        qx[r] = b[r] * math.cos(phi[r])
-        qy[r] = b[r] * math.sin(phi[r])
-    bucket_node_start = np.zeros(nb + 1, np.int32)
-    for k in range(nb):
-        m = item_start[k + 1] - item_start[k]
+def _tree_sizes(tree_start, leaf_size):
+    """Nodes per tree: complete binary trees deep enough for <= leaf_size records per leaf."""
+    nt = tree_start.shape[0] - 1
+    tree_node_start = np.zeros(nt + 1, np.int32)
+    for t in range(nt):
+        m = tree_start[t + 1] - tree_start[t]
         nodes = 0
         if m > 0:
             depth = 0
             while (m + (1 << depth) - 1) >> depth > leaf_size:
                 depth += 1
             nodes = (1 << (depth + 1)) - 1
-        bucket_node_start[k + 1] = bucket_node_start[k] + nodes
-    total = bucket_node_start[nb]
+        tree_node_start[t + 1] = tree_node_start[t] + nodes
+    return tree_node_start
+
+
+@parallel_kernel
+def _build_trees(a, b, phi, tree_items, tree_start, leaf_size):
+    """Returns (perm, tree_node_start, node_range, node_box, node_tree).
+
+    Tree t indexes the records tree_items[tree_start[t]:tree_start[t+1]] (ascending record indices).
+    perm: tree order -> record index. Tree t owns nodes tree_node_start[t]..[t+1]; local node j has
+    children 2j+1, 2j+2 and is a leaf when 2j+1 is past the end. Nodes split their range at the
+    middle along the wider q axis, so all leaves of a tree sit at one depth with <= leaf_size records.
+    Trees are built in parallel; each writes only its own rows, so the result is thread-count free.
+    """
+    n = a.shape[0]
+    nt = tree_start.shape[0] - 1
+    qx = np.empty(n)
+    qy = np.empty(n)
+    for r in range(n):
+        qx[r] = b[r] * math.cos(phi[r])
+        qy[r] = b[r] * math.sin(phi[r])
+    tree_node_start = _tree_sizes(tree_start, leaf_size)
+    total = tree_node_start[nt]
     node_range = np.zeros((total, 2), np.int32)
     node_box = np.zeros((total, _NODE_COLS))
-    perm = items.copy()
-    for k in range(nb):
-        base = bucket_node_start[k]
-        nodes = bucket_node_start[k + 1] - base
+    node_tree = np.empty(total, np.int32)
+    perm = tree_items.copy()
+    for k in numba.prange(nt):
+        base = tree_node_start[k]
+        nodes = tree_node_start[k + 1] - base
         if nodes == 0:
             continue
-        node_range[base, 0] = item_start[k]
-        node_range[base, 1] = item_start[k + 1]
+        node_range[base, 0] = tree_start[k]
+        node_range[base, 1] = tree_start[k + 1]
         for j in range(nodes):  # index order is breadth-first: parents before children
+            node_tree[base + j] = k
             lo = node_range[base + j, 0]
             hi = node_range[base + j, 1]
             box = node_box[base + j]
@@ -319,7 +339,7 @@ def _build_trees(a, b, phi, bucket_start, items, item_start, leaf_size):
                 node_range[base + 2 * j + 1, 1] = mid
                 node_range[base + 2 * j + 2, 0] = mid
                 node_range[base + 2 * j + 2, 1] = hi
-    return perm, bucket_node_start, node_range, node_box
+    return perm, tree_node_start, node_range, node_box, node_tree
 
 
 @kernel
@@ -364,11 +384,11 @@ def _clip(poly, src, n, hx, hy, h0):
 
 
 @kernel
-def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start, k0, k1, fl, fb,
+def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, tree_node_start, t0, t1, fl, fb,
                      poly, gx, gy, all_lines):
     """Strict mode: a conservative outline, in the heading frame q = R(-theta) u, of where eligible
-    records can lie. Fills fb with a q box (x0, x1, y0, y1) holding every eligible record of buckets
-    k0..k1 and returns the number of half-planes written to fl (rows hx, hy, h0: a record is surely
+    records can lie. Fills fb with a q box (x0, x1, y0, y1) holding every eligible record of trees
+    t0..t1 and returns the number of half-planes written to fl (rows hx, hy, h0: a record is surely
     ineligible when h0 + hx*qx + hy*qy > 0), keeping only lines that cut that box (the others cannot
     reject anything inside it); returns -1 when no record there can be eligible.
 
@@ -406,14 +426,14 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket
             fl[nf, 1] = hy
             fl[nf, 2] = h0
             nf += 1
-    # Start from the q box of the searched buckets' roots, cut to the speed limit.
+    # Start from the q box of the searched trees' roots, cut to the speed limit.
     x0 = np.inf
     x1 = -np.inf
     y0 = np.inf
     y1 = -np.inf
-    for k in range(k0, k1 + 1):
-        if bucket_node_start[k + 1] > bucket_node_start[k]:
-            m = bucket_node_start[k]
+    for k in range(t0, t1 + 1):
+        if tree_node_start[k + 1] > tree_node_start[k]:
+            m = tree_node_start[k]
             x0 = min(x0, node_box[m, 0])
             x1 = max(x1, node_box[m, 1])
             y0 = min(y0, node_box[m, 2])
@@ -488,22 +508,24 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket
 
 
 @kernel
-def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
-                  node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
-                  max_speed, lines, line_count, node_bucket, fl, fb, poly, hl, hm, cand_e, cand_p,
-                  out_vel, out_rec, out_evals, out_visits, work):
+def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree,
+                  node_range, node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir,
+                  v_safe, v_group, max_speed, lines, line_count, fl, fb, poly, hl, hm, cand_e, cand_p,
+                  out_vel, out_rec, out_evals, out_visits, work, order):
     """Pruned search for agents lo..hi-1: writes out_vel/out_rec, or out_evals/out_visits when `work`.
 
     One call per block of agents: every array argument of a numba call costs atomic refcounts, so
     the per-agent and per-node work below is written inline with scalar-only helpers. fl, fb, poly,
-    hl, hm, cand_e, cand_p are scratch buffers; node_bucket maps a node to its bucket.
+    hl, hm, cand_e, cand_p are scratch buffers; node_tree maps a node to its tree. forest_z >= 0: tree k
+    holds buckets k-z..k+z (one root per agent); -1: tree k holds bucket k (roots k-z..k+z).
 
     Nodes are expanded best-first (least bound first) across all searched buckets, so the search
     stops as soon as the least open bound exceeds the best energy found. A leaf's records that pass
     the trigonometry-free filters get their exact energy in ascending order of approximate energy.
     """
     nb = bucket_start.shape[0] - 1
-    for i in range(lo, hi):
+    for ii in range(lo, hi):
+        i = order[ii]
         vnx = v_now[i, 0]
         vny = v_now[i, 1]
         vpx = v_pref[i, 0]
@@ -533,6 +555,12 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
         visits = 0
         if nb > 0 and a.shape[0] > 0:
             k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
+            if forest_z >= 0:  # one tree holds the whole window: the one of the agent's own bucket
+                t0 = _bucket_of(bucket_min_a, s)
+                t1 = t0
+            else:
+                t0 = k0
+                t1 = k1
             # Quadratic terms as W*|q - c'|^2 + C0 in the heading frame.
             if s > HEADING_EPS:  # same frame as cos/sin(theta) up to rounding, far inside the margins
                 ct = vnx / s
@@ -586,7 +614,7 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                 best_r = _scan_agent(a, b, phi, r0, r1, theta, s, dn, ws, vmax, strict, lines, i, nl,
                                      vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
                 evals = r1 - r0
-                k1 = k0 - 1  # nothing left to search
+                t1 = t0 - 1  # nothing left to search
                 nf = 0
             else:
                 # Where eligible records can lie (strict mode); nothing to search when nowhere.
@@ -598,10 +626,10 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                     nf = 0
                 else:
                     # v_safe passing every line means the region is not empty: clipping by the centre's lines will do
-                    nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, bucket_node_start,
-                                          k0, k1, fl, fb, poly, gx, gy, not _allowed(vsx, vsy, strict, lines, i, nl))
+                    nf = _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, tree_node_start,
+                                          t0, t1, fl, fb, poly, gx, gy, not _allowed(vsx, vsy, strict, lines, i, nl))
                 if nf < 0:
-                    k1 = k0 - 1
+                    t1 = t0 - 1
                     nf = 0
             fx0 = fb[0]
             fx1 = fb[1]
@@ -624,7 +652,7 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
             c1 = 0
             while True:
                 if roots:
-                    cnt = k1 - k0 + 1
+                    cnt = t1 - t0 + 1
                 else:
                     if size == 0:
                         break
@@ -652,10 +680,10 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                     if lb > best + margin:
                         break  # every open node's bound is at least this one
                     visits += 1
-                    k = node_bucket[m]
-                    base = bucket_node_start[k]
+                    k = node_tree[m]
+                    base = tree_node_start[k]
                     c1 = 2 * (m - base) + 1
-                    if c1 >= bucket_node_start[k + 1] - base:
+                    if c1 >= tree_node_start[k + 1] - base:
                         # Leaf: trigonometry-free filters first, then exact energies, least approximate first.
                         nc = 0
                         for p in range(node_range[m, 0], node_range[m, 1]):
@@ -720,10 +748,10 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
                     cnt = 2
                 for t in range(cnt):
                     if roots:
-                        k = k0 + t
-                        if bucket_node_start[k + 1] == bucket_node_start[k]:
+                        k = t0 + t
+                        if tree_node_start[k + 1] == tree_node_start[k]:
                             continue
-                        mc = bucket_node_start[k]
+                        mc = tree_node_start[k]
                     else:
                         mc = base + c1 + t
                     # Lower bound of the energy of every record in node mc; skip the node when no
@@ -854,39 +882,67 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bu
 
 
 @kernel
-def _window_nodes(bucket_node_start, z):
-    """Most tree nodes any agent's bucket window k-z..k+z holds: the size of the search heap."""
-    nb = bucket_node_start.shape[0] - 1
+def _window_nodes(tree_node_start, z):
+    """Most tree nodes any agent's roots t-z..t+z hold: the size of the search heap."""
+    nt = tree_node_start.shape[0] - 1
     most = 1
-    for k in range(nb):
+    for k in range(nt):
         lo = max(0, k - z)
-        hi = min(nb - 1, k + z)
-        most = max(most, bucket_node_start[hi + 1] - bucket_node_start[lo])
+        hi = min(nt - 1, k + z)
+        most = max(most, tree_node_start[hi + 1] - tree_node_start[lo])
     return most
 
 
 @kernel
-def _node_buckets(bucket_node_start, node_range):
-    """(bucket of each node, most records in one node)."""
-    nb = bucket_node_start.shape[0] - 1
-    out = np.empty(max(bucket_node_start[nb], 1), np.int32)
+def _largest_leaf(tree_node_start, node_range):
+    """Most records in one leaf (every tree's last node is a leaf at the common depth)."""
     most = 1
+    for k in range(tree_node_start.shape[0] - 1):
+        if tree_node_start[k + 1] > tree_node_start[k]:
+            m = tree_node_start[k + 1] - 1
+            first = tree_node_start[k] + (tree_node_start[k + 1] - tree_node_start[k]) // 2
+            for j in range(first, m + 1):
+                most = max(most, node_range[j, 1] - node_range[j, 0])
+    return most
+
+
+@kernel
+def _agents_by_bucket(bucket_start, bucket_min_a, v_now):
+    """Agent rows grouped by the bucket of their speed (counting sort; ascending rows within a bucket).
+
+    Agents of one bucket walk the same few trees and leaves, so searching them one after another
+    finds those nodes in cache. Each agent's result does not depend on the order."""
+    n = v_now.shape[0]
+    nb = bucket_start.shape[0] - 1
+    order = np.arange(n)
+    if nb < 2:
+        return order
+    kk = np.empty(n, np.int64)
+    count = np.zeros(nb + 1, np.int64)
+    for i in range(n):
+        k = _bucket_of(bucket_min_a, math.sqrt(v_now[i, 0] * v_now[i, 0] + v_now[i, 1] * v_now[i, 1]))
+        kk[i] = k
+        count[k + 1] += 1
     for k in range(nb):
-        for m in range(bucket_node_start[k], bucket_node_start[k + 1]):
-            out[m] = k
-            most = max(most, node_range[m, 1] - node_range[m, 0])
-    return out, most
+        count[k + 1] += count[k]
+    for i in range(n):
+        order[count[kk[i]]] = i
+        count[kk[i]] += 1
+    return order
 
 
 @parallel_kernel
-def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
-                   node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+                   node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                    max_speed, lines, line_count, out_vel, out_rec, out_evals, out_visits, work):
     n = v_now.shape[0]
-    node_bucket, most = _node_buckets(bucket_node_start, node_range)
-    hcap = _window_nodes(bucket_node_start, z)
+    if forest_z >= 0 and z != forest_z:
+        raise ValueError("this forest was built for another search width")
+    most = _largest_leaf(tree_node_start, node_range)
+    hcap = _window_nodes(tree_node_start, 0 if forest_z >= 0 else z)
     nl_max = max(lines.shape[1], 1)
     nblocks = (n + _BLOCK - 1) // _BLOCK
+    order = _agents_by_bucket(bucket_start, bucket_min_a, v_now)
     for blk in numba.prange(nblocks):
         # Scratch shared by the block's agents: one allocation each per 64 agents, not per agent.
         fl = np.empty((nl_max, 3))
@@ -897,29 +953,29 @@ def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_no
         cand_e = np.empty(most)
         cand_p = np.empty(most, np.int64)
         _search_block(blk * _BLOCK, min((blk + 1) * _BLOCK, n), a, b, phi, bucket_start, bucket_min_a, perm,
-                      rec_t, bucket_node_start, node_range, node_box, b_max, a_max, weights, z, strict, v_now,
-                      v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, node_bucket, fl, fb, poly,
-                      hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work)
+                      rec_t, tree_node_start, node_tree, node_range, node_box, b_max, a_max, forest_z, weights, z,
+                      strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, fl, fb, poly,
+                      hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work, order)
 
 
 @kernel  # the prange over agent blocks is in `_pruned_blocks`
-def choose_pruned(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
-                  node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+def choose_pruned(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+                  node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                   max_speed, lines, line_count, out_vel, out_rec):
     """Indexed search; returns exactly the record `choose_full` returns. Writes row i only."""
     dummy = np.empty(1, np.int64)
-    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
-                   node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+                   node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                    max_speed, lines, line_count, out_vel, out_rec, dummy, dummy, False)
 
 
 @kernel  # the prange over agent blocks is in `_pruned_blocks`
-def pruned_work(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
-                node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+def pruned_work(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+                node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                 max_speed, lines, line_count, out_evals, out_visits):
     """Diagnostics for benchmarks: energies evaluated and tree nodes visited per agent."""
-    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, bucket_node_start, node_range,
-                   node_box, b_max, a_max, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
+    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+                   node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                    max_speed, lines, line_count, np.empty((1, 2)), np.empty(1, np.int32), out_evals,
                    out_visits, True)
 
@@ -1017,14 +1073,49 @@ def _distinct_items(a, b, phi, bucket_start):
     return items, item_start
 
 
-class RecordIndex:
-    """Search index over one record set: per-bucket k-d trees of q_r = b_r*(cos phi_r, sin phi_r).
+class _Forest:
+    """k-d trees of q_r = b_r*(cos phi_r, sin phi_r), one per bucket or one per bucket window."""
 
-    Build once per record set (O(N log N)); read-only afterwards. Attributes are plain numpy arrays.
+    __slots__ = ("perm", "rec_t", "tree_node_start", "node_tree", "node_range", "node_box", "z")
+
+    def __init__(self, a, b, phi, items, tree_start, leaf_size, z):
+        perm, self.tree_node_start, self.node_range, self.node_box, self.node_tree = _build_trees(
+            a, b, phi, items, tree_start, leaf_size)
+        self.perm = perm
+        # Tree-order rows (qx, qy, a, cos phi, sin phi, b) so leaves read memory sequentially.
+        cp, sp = np.cos(phi[perm]), np.sin(phi[perm])
+        self.rec_t = np.ascontiguousarray(np.stack([b[perm] * cp, b[perm] * sp, a[perm], cp, sp, b[perm]], axis=1))
+        self.z = z
+        for name in ("perm", "rec_t", "tree_node_start", "node_tree", "node_range", "node_box"):
+            getattr(self, name).setflags(write=False)
+
+
+def _window_items(items, item_start, z):
+    """Items of the windows k-z..k+z, window after window: one tree's records per window."""
+    nb = item_start.shape[0] - 1
+    k = np.arange(nb)
+    lo = item_start[np.maximum(k - z, 0)]
+    hi = item_start[np.minimum(k + z, nb - 1) + 1]
+    start = np.zeros(nb + 1, np.int32)
+    np.cumsum(hi - lo, out=start[1:])
+    if nb == 0:
+        return np.zeros(0, np.int32), start
+    return np.concatenate([items[x:y] for x, y in zip(lo, hi)]).astype(np.int32), start
+
+
+class RecordIndex:
+    """Search index over one record set: k-d trees of q_r = b_r*(cos phi_r, sin phi_r).
+
+    The base forest has one tree per bucket and serves every search width z (the search starts at the
+    roots of buckets k-z..k+z). For 1 <= z <= WINDOW_Z_MAX a window forest is built on first use: one
+    tree per bucket k over buckets k-z..k+z, so each agent searches a single tree. That holds each
+    record (2z+1) times (z = 3: 7x the base forest, about 30 MB for 80,000 records), and halves the
+    search time: one descent instead of 2z+1. Built in O(N log N); read-only afterwards.
     """
 
-    __slots__ = ("a", "b", "phi", "bucket_start", "bucket_min_a", "perm", "rec_t",
-                 "bucket_node_start", "node_range", "node_box", "b_max", "a_max", "leaf_size")
+    WINDOW_Z_MAX = 8
+    __slots__ = ("a", "b", "phi", "bucket_start", "bucket_min_a", "items", "item_start", "base", "_windows",
+                 "b_max", "a_max", "leaf_size")
 
     @classmethod
     def build(cls, a, b=None, phi=None, bucket_start=None, bucket_min_a=None, leaf_size=32):
@@ -1038,21 +1129,28 @@ class RecordIndex:
             raise RecordSetError(f"leaf_size must be an integer >= 1, got {leaf_size!r}")
         a, b, phi, bs, bma = _check_records(a, b, phi, bucket_start, bucket_min_a)
         items, item_start = _distinct_items(a, b, phi, bs)
-        perm, bns, node_range, node_box = _build_trees(a, b, phi, bs, items, item_start, int(leaf_size))
         self = object.__new__(cls)
         self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a = a, b, phi, bs, bma
-        self.perm = perm
-        # Tree-order rows (qx, qy, a, cos phi, sin phi, b) so leaves read memory sequentially.
-        cp, sp = np.cos(phi[perm]), np.sin(phi[perm])
-        self.rec_t = np.ascontiguousarray(np.stack([b[perm] * cp, b[perm] * sp, a[perm], cp, sp, b[perm]], axis=1))
-        self.bucket_node_start, self.node_range, self.node_box = bns, node_range, node_box
+        self.items, self.item_start = items, item_start
+        self.leaf_size = int(leaf_size)
+        self.base = _Forest(a, b, phi, items, item_start, self.leaf_size, -1)
+        self._windows = {}
         self.b_max = float(b.max()) if len(b) else 0.0
         self.a_max = float(np.abs(a).max()) if len(a) else 0.0
-        self.leaf_size = int(leaf_size)
-        for name in ("a", "b", "phi", "bucket_start", "bucket_min_a", "perm", "rec_t",
-                     "bucket_node_start", "node_range", "node_box"):
+        for name in ("a", "b", "phi", "bucket_start", "bucket_min_a", "items", "item_start"):
             getattr(self, name).setflags(write=False)
         return self
+
+    def forest(self, z=None):
+        """The forest a search of width z uses (the base forest when z is None, 0 or above WINDOW_Z_MAX)."""
+        if z is None or not 1 <= z <= self.WINDOW_Z_MAX or self.n_buckets < 2:
+            return self.base
+        z = int(z)
+        f = self._windows.get(z)
+        if f is None:  # a race between threads only builds the same forest twice
+            items, start = _window_items(self.items, self.item_start, z)
+            f = self._windows[z] = _Forest(self.a, self.b, self.phi, items, start, self.leaf_size, z)
+        return f
 
     @property
     def n_records(self) -> int:
@@ -1066,10 +1164,12 @@ class RecordIndex:
         """Leading arguments of `choose_full`."""
         return self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a
 
-    def pruned_args(self):
-        """Leading arguments of `choose_pruned`."""
-        return (self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a, self.perm, self.rec_t,
-                self.bucket_node_start, self.node_range, self.node_box, self.b_max, self.a_max)
+    def pruned_args(self, z=None):
+        """Leading arguments of `choose_pruned` (and `pruned_work`) for search width z; without z, the
+        base forest's, which serve any width."""
+        f = self.forest(z)
+        return (self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a, f.perm, f.rec_t,
+                f.tree_node_start, f.node_tree, f.node_range, f.node_box, self.b_max, self.a_max, f.z)
 
     def run(self, kernel_fn, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed,
             lines, line_count, out_vel, out_rec):
@@ -1084,7 +1184,7 @@ class RecordIndex:
         if kernel_fn is choose_full:
             lead = self.full_args()
         elif kernel_fn is choose_pruned:
-            lead = self.pruned_args()
+            lead = self.pruned_args(int(z))
         else:
             raise StepError("kernel_fn must be choose_full or choose_pruned")
         if n:
@@ -1189,7 +1289,7 @@ def choose(records, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
     args = (w, int(z), bool(strict), arrs["v_now"], arrs["v_pref"], arrs["nav_dir"], arrs["v_safe"],
             arrs["v_group"], vmax, ln, lc, out_vel, out_rec)
     if method == "pruned":
-        choose_pruned(*index.pruned_args(), *args)
+        choose_pruned(*index.pruned_args(int(z)), *args)
     else:
         choose_full(*(index.full_args() if index is not None else full), *args)
     return out_vel, out_rec

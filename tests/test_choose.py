@@ -265,6 +265,11 @@ def test_pruned_equals_full(seed, n_rec, buckets, z, strict, w, ties, leaf, line
     vel_p, rec_p = run(ch.choose_pruned, index, w, z, strict, agents)
     np.testing.assert_array_equal(rec_p, rec_f)
     assert np.array_equal(vel_p, vel_f)
+    # the base forest (one tree per bucket, 2z+1 roots) serves widths without a window forest
+    vel_b, rec_b = np.full_like(vel_f, np.nan), np.full_like(rec_f, -7)
+    ch.choose_pruned(*index.pruned_args(), w, z, strict, *agents, vel_b, rec_b)
+    np.testing.assert_array_equal(rec_b, rec_f)
+    assert np.array_equal(vel_b, vel_f)
     none = rec_f < 0
     np.testing.assert_array_equal(vel_f[none], agents[3][none])
 
@@ -324,6 +329,25 @@ def test_infeasible_agents_skip_the_search():
     assert evals.max() == 0 and visits.max() == 0  # the feasible region is empty: nothing is visited
 
 
+def test_window_forests_hold_each_window_once_and_are_built_once():
+    rng = np.random.default_rng(9)
+    index = ch.RecordIndex.build(*make_records(rng, 600, 12), leaf_size=4)
+    assert index.forest(0) is index.base and index.forest(None) is index.base
+    assert index.forest(ch.RecordIndex.WINDOW_Z_MAX + 1) is index.base  # too wide: 2z+1 roots instead
+    f = index.forest(2)
+    assert index.forest(2) is f and f.z == 2
+    nb = index.n_buckets
+    for k in range(nb):
+        lo, hi = index.item_start[max(k - 2, 0)], index.item_start[min(k + 2, nb - 1) + 1]
+        m0, m1 = f.tree_node_start[k], f.tree_node_start[k + 1]
+        tree = sorted(f.perm[f.node_range[m0, 0]:f.node_range[m0, 1]].tolist()) if m1 > m0 else []
+        assert tree == index.items[lo:hi].tolist()
+    with pytest.raises(ValueError, match="another search width"):
+        agents = make_agents(rng, 5)
+        ch.pruned_work(*index.pruned_args(2), np.ones(6), 3, True, *agents, np.empty(5, np.int64),
+                       np.empty(5, np.int64))
+
+
 def test_duplicate_records_are_indexed_once_per_bucket():
     # Bitwise copies inside a bucket are left out of its tree; copies in other buckets stay.
     a = np.array([0.0, 0.0, 0.0, 0.0, 0.0, -0.0, 1.0, 1.0, 1.0])
@@ -335,7 +359,7 @@ def test_duplicate_records_are_indexed_once_per_bucket():
     # bucket 0: 0 (1, 2 copy it); bucket 1: 3 (first here), 4; bucket 2: 5 (-0.0 bits differ), 6, 8 (7 copies 6)
     assert items.tolist() == [0, 3, 4, 5, 6, 8] and starts.tolist() == [0, 1, 3, 6]
     index = ch.RecordIndex.build(a, b, phi, bs, leaf_size=1)
-    assert sorted(index.perm.tolist()) == items.tolist()
+    assert sorted(index.base.perm.tolist()) == items.tolist()
     agents = make_agents(np.random.default_rng(4), 60, lines_max=2)
     for strict in (False, True):
         for z in (0, 1, 2):

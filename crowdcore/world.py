@@ -48,6 +48,8 @@ def _finite_array(name, value, shape_tail, n=None):
         raise StepError(f"{name}: expected shape (n{''.join(f', {s}' for s in shape_tail)}), got {arr.shape}")
     if n is not None and arr.shape[0] != n:
         raise StepError(f"{name}: expected {n} rows, got {arr.shape[0]}")
+    if not arr.size:  # an empty batch (reshape cannot infer a width from zero rows)
+        return np.ascontiguousarray(arr)
     bad = ~np.isfinite(arr).reshape(arr.shape[0], -1).all(axis=1)
     if bad.any():
         raise StepError(f"{name}[{int(np.argmax(bad))}]: must be finite, got {arr[int(np.argmax(bad))].tolist()}")

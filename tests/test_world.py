@@ -76,6 +76,15 @@ def test_bad_agent_input_changes_nothing():
     assert all(np.array_equal(a, b) for a, b in zip(before, state(w)))
 
 
+def test_empty_batches_add_and_remove_nothing():
+    w = scene("corner")
+    before = state(w)
+    assert w.add_agents(np.zeros((0, 2)), velocity=np.zeros((0, 2))).tolist() == []
+    w.remove_agents([])
+    assert all(np.array_equal(a, b) for a, b in zip(before, state(w)))
+    w.step(0.1)  # and the world still steps
+
+
 def test_world_in_code_and_queries():
     w = crowdcore.World(seed=2)
     w.add_wall([[0, 0], [20, 0]])

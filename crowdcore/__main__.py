@@ -1,0 +1,4 @@
+"""`python -m crowdcore ...` runs the same command line as the `crowdcore` console command."""
+from .cli import main
+
+raise SystemExit(main())

@@ -128,7 +128,7 @@ def scene_regime(n_agents, repeat, steps=5):
             _wall, cpu = _median_ms(run, max(1, repeat if name == "pruned" else min(repeat, 3)))
             outs[name] = (cpu, vel, rec)
         evals, visits = np.empty(n, np.int64), np.empty(n, np.int64)
-        ch.pruned_work(*index.pruned_args(), *inp, evals, visits)
+        ch.pruned_work(*index.pruned_args(inp[1]), *inp, evals, visits)
     finally:
         _jit.set_threads(threads)
     full_cpu, pruned_cpu = outs["full"][0], outs["pruned"][0]
@@ -187,7 +187,7 @@ def main(argv=None):
         full_ms, full_cpu = _median_ms(full, args.repeat)
         pruned_ms, pruned_cpu = _median_ms(pruned, args.repeat)
         evals, visits = np.empty(n, np.int64), np.empty(n, np.int64)
-        ch.pruned_work(*index.pruned_args(), weights, args.width, strict, *ag, evals, visits)
+        ch.pruned_work(*index.pruned_args(args.width), weights, args.width, strict, *ag, evals, visits)
         result[name] = {
             "half_planes_per_agent": float(ag[7].mean()),
             "full_ms": round(full_ms, 2), "pruned_ms": round(pruned_ms, 2),

@@ -378,6 +378,8 @@ class World:
 
         z, k = p.search_width, p.neighbours
         if p.budget_ms > 0:  # a pure function of n and stored numbers: replays make the same choice
+            for zz in range(1, min(z, RecordIndex.WINDOW_Z_MAX) + 1):
+                self._index.forest(zz)  # every width the governor may pick, built before a budgeted frame
             z, k = plan(n, p.budget_ms, p.budget_coeffs, z_max=z, k_min=min(4, k), k_max=k)
         nbr = np.empty((n, k), np.int32)
         nbr_count = np.empty(n, np.int32)

@@ -5,7 +5,6 @@ import os
 import numpy as np
 import pytest
 
-from crowdcore import params as _params
 from crowdcore import verify
 from crowdcore.errors import ScenarioError
 
@@ -29,15 +28,27 @@ def test_bottleneck_specific_flow_band_and_linear():
     assert r["passed"], r["values"]
 
 
-HEADWAY = "headway_time" in {f for f in _params.Params.__dataclass_fields__}
+@pytest.fixture(scope="module")
+def fd_quick():
+    return verify.case_fundamental_diagram(quick=True)
 
 
-@pytest.mark.xfail(not HEADWAY, reason="needs the speed-headway rule in the core (see the issue 6 note); "
-                                       "ORCA alone lets a packed crowd walk at free speed", strict=False)
-def test_fundamental_diagram_inside_band():
+def test_fundamental_diagram_periodic_corridor(fd_quick):
     # Weidmann 1993 [M] and SFPE hydraulic relation [M]; band = envelope +-0.25 m/s (one sd of free speed [V])
-    r = verify.case_fundamental_diagram(quick=True)
-    assert r["passed"], r["values"]
+    v = fd_quick["values"]
+    pts = v["points"]
+    assert v["seam_overlaps"]["pair_frames_over_1pct"] == 0, v     # interaction across the seam holds bodies apart
+    for p in pts:
+        assert p["ring_density"] == p["nominal"], p                 # the ring keeps every agent
+        assert abs(p["density"] - p["nominal"]) <= 0.1 * p["nominal"], p   # no plug, no thinning (common practice)
+    below = [p for p in pts if p["nominal"] <= 2.0]
+    assert all(p["inside"] for p in below), pts
+    assert all(b["speed"] < a["speed"] for a, b in zip(below, below[1:])), pts
+
+
+def test_fundamental_diagram_inside_band(fd_quick):
+    # Weidmann 1993 [M] and SFPE hydraulic relation [M]; band = envelope +-0.25 m/s (one sd of free speed [V])
+    assert fd_quick["passed"], fd_quick["values"]
 
 
 def test_band_definitions():

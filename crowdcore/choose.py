@@ -948,12 +948,7 @@ def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node
     nl_max = max(lines.shape[1], 1)
     nblocks = (n + _BLOCK - 1) // _BLOCK
     order = _agents_by_bucket(bucket_start, bucket_min_a, v_now)
-    # Blocks follow the speed order and cost differs by speed (by 20% between the halves of a crowd).
-    # Work items take even blocks first, then odd ones, so the contiguous share each thread gets under
-    # a static schedule mixes all speeds alike.
-    half = (nblocks + 1) // 2
-    for item in numba.prange(nblocks):
-        blk = 2 * item if item < half else 2 * (item - half) + 1
+    for blk in numba.prange(nblocks):
         # Scratch shared by the block's agents: one allocation each per 64 agents, not per agent.
         fl = np.empty((nl_max, 3))
         fb = np.empty(4)

@@ -146,13 +146,20 @@ def _allowed(ux, uy, strict, lines, i, nl):
 
 @kernel
 def _bucket_of(bucket_min_a, s):
+    """The last bucket whose least entry speed is <= s, clamped to 0..nb-1 (NaN: the last bucket, as
+    numpy's searchsorted would sort it). A plain bisection: numba's searchsorted costs about 4x more."""
     nb = bucket_min_a.shape[0]
-    k = np.searchsorted(bucket_min_a, s, side="right") - 1
-    if k < 0:
-        k = 0
-    if k > nb - 1:
-        k = nb - 1
-    return k
+    if s != s:
+        return nb - 1
+    lo = 0
+    hi = nb
+    while lo < hi:
+        mid = (lo + hi) >> 1
+        if bucket_min_a[mid] <= s:
+            lo = mid + 1
+        else:
+            hi = mid
+    return min(max(lo - 1, 0), nb - 1)
 
 
 @kernel
@@ -512,7 +519,7 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, tree_n
 def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree,
                   node_range, node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir,
                   v_safe, v_group, max_speed, lines, line_count, fl, fb, poly, hl, hm, cand_e, cand_p,
-                  out_vel, out_rec, out_evals, out_visits, work, order):
+                  out_vel, out_rec, out_evals, out_visits, work, order, agent_bucket):
     """Pruned search for agents lo..hi-1: writes out_vel/out_rec, or out_evals/out_visits when `work`.
 
     One call per block of agents: every array argument of a numba call costs atomic refcounts, so
@@ -555,9 +562,11 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
         evals = 0
         visits = 0
         if nb > 0 and a.shape[0] > 0:
-            k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
+            kb = agent_bucket[i]  # _bucket_of(bucket_min_a, s), found when ordering the agents
+            k0 = max(0, kb - z)
+            k1 = min(nb - 1, kb + z)
             if forest_z >= 0:  # one tree holds the whole window: the one of the agent's own bucket
-                t0 = _bucket_of(bucket_min_a, s)
+                t0 = kb
                 t1 = t0
             else:
                 t0 = k0
@@ -661,27 +670,17 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
                 else:
                     if size == 0:
                         break
-                    # pop the least bound from the heap
+                    # pop the least bound (open nodes are few: a linear scan beats a heap's branches)
+                    t = 0
                     lb = hl[0]
-                    m = hm[0]
+                    for u in range(1, size):
+                        if hl[u] < lb:
+                            lb = hl[u]
+                            t = u
+                    m = hm[t]
                     size -= 1
-                    if size > 0:
-                        xl = hl[size]
-                        xm = hm[size]
-                        u = 0
-                        while True:
-                            c = 2 * u + 1
-                            if c >= size:
-                                break
-                            if c + 1 < size and hl[c + 1] < hl[c]:
-                                c += 1
-                            if hl[c] >= xl:
-                                break
-                            hl[u] = hl[c]
-                            hm[u] = hm[c]
-                            u = c
-                        hl[u] = xl
-                        hm[u] = xm
+                    hl[t] = hl[size]
+                    hm[t] = hm[size]
                     if lb > best + margin:
                         break  # every open node's bound is at least this one
                     visits += 1
@@ -866,17 +865,8 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
                         lbc = _BIG
                     if lbc > best + margin:
                         continue
-                    # push (lbc, mc) on the heap (sized to hold every node of a window)
-                    u = size
-                    while u > 0:
-                        pu = (u - 1) >> 1
-                        if hl[pu] <= lbc:
-                            break
-                        hl[u] = hl[pu]
-                        hm[u] = hm[pu]
-                        u = pu
-                    hl[u] = lbc
-                    hm[u] = mc
+                    hl[size] = lbc
+                    hm[size] = mc
                     size += 1
                 roots = False
         if work:
@@ -888,7 +878,7 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
 
 @kernel
 def _window_nodes(tree_node_start, z):
-    """Most tree nodes any agent's roots t-z..t+z hold: the size of the search heap."""
+    """Most tree nodes any agent's roots t-z..t+z hold: the most open nodes a search can have."""
     nt = tree_node_start.shape[0] - 1
     most = 1
     for k in range(nt):
@@ -913,16 +903,17 @@ def _largest_leaf(tree_node_start, node_range):
 
 @kernel
 def _agents_by_bucket(bucket_start, bucket_min_a, v_now):
-    """Agent rows grouped by the bucket of their speed (counting sort; ascending rows within a bucket).
+    """(order, bucket): agent rows grouped by the bucket of their speed (counting sort; ascending rows
+    within a bucket), and each row's bucket (`_bucket_of` of its speed, as the search computes it).
 
     Agents of one bucket walk the same few trees and leaves, so searching them one after another
     finds those nodes in cache. Each agent's result does not depend on the order."""
     n = v_now.shape[0]
     nb = bucket_start.shape[0] - 1
     order = np.arange(n)
-    if nb < 2:
-        return order
-    kk = np.empty(n, np.int64)
+    kk = np.zeros(n, np.int64)
+    if nb < 1:
+        return order, kk
     count = np.zeros(nb + 1, np.int64)
     for i in range(n):
         k = _bucket_of(bucket_min_a, math.sqrt(v_now[i, 0] * v_now[i, 0] + v_now[i, 1] * v_now[i, 1]))
@@ -933,7 +924,7 @@ def _agents_by_bucket(bucket_start, bucket_min_a, v_now):
     for i in range(n):
         order[count[kk[i]]] = i
         count[kk[i]] += 1
-    return order
+    return order, kk
 
 
 @parallel_kernel
@@ -947,7 +938,7 @@ def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node
     hcap = _window_nodes(tree_node_start, 0 if forest_z >= 0 else z)
     nl_max = max(lines.shape[1], 1)
     nblocks = (n + _BLOCK - 1) // _BLOCK
-    order = _agents_by_bucket(bucket_start, bucket_min_a, v_now)
+    order, agent_bucket = _agents_by_bucket(bucket_start, bucket_min_a, v_now)
     for blk in numba.prange(nblocks):
         # Scratch shared by the block's agents: one allocation each per 64 agents, not per agent.
         fl = np.empty((nl_max, 3))
@@ -960,7 +951,7 @@ def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node
         _search_block(blk * _BLOCK, min((blk + 1) * _BLOCK, n), a, b, phi, bucket_start, bucket_min_a, perm,
                       rec_t, tree_node_start, node_tree, node_range, node_box, b_max, a_max, forest_z, weights, z,
                       strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, fl, fb, poly,
-                      hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work, order)
+                      hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work, order, agent_bucket)
 
 
 @kernel  # the prange over agent blocks is in `_pruned_blocks`

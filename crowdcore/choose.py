@@ -67,48 +67,66 @@ _NODE_COLS = 13         # qx_lo qx_hi qy_lo qy_hi a_lo a_hi phi_lo phi_hi cos/si
 # Per-agent, per-record pieces (shared by both searches)
 
 @kernel
+def _unit(x, y):
+    """(x, y) / |(x, y)| without overflow or underflow in the squares; (0, 0) for a zero vector."""
+    m = max(abs(x), abs(y))
+    if m == 0.0:
+        return 0.0, 0.0
+    if 1e-150 < m < 1e150:  # squares stay normal: the direct formula (all but absurd inputs)
+        h = math.sqrt(x * x + y * y)
+        return x / h, y / h
+    x /= m
+    y /= m
+    h = math.sqrt(x * x + y * y)
+    return x / h, y / h
+
+
+@kernel
 def agent_frame(vnx, vny, vpx, vpy, dx, dy):
-    """(theta, s, dn): heading, speed |v_now| and |nav_dir|, as the contract defines them."""
+    """(ct, st, s, dn): unit heading, speed |v_now| and |nav_dir|, as the contract defines them.
+
+    The heading is the direction of v_now; an agent slower than HEADING_EPS takes the navigation
+    direction, else its preferred velocity's, else +x."""
     s = math.sqrt(vnx * vnx + vny * vny)
     dn = math.sqrt(dx * dx + dy * dy)
     if s > HEADING_EPS:
-        theta = math.atan2(vny, vnx)
-    elif dn > 0.0:
-        theta = math.atan2(dy, dx)
+        ct, st = _unit(vnx, vny)
+    elif dx != 0.0 or dy != 0.0:
+        ct, st = _unit(dx, dy)
     elif vpx != 0.0 or vpy != 0.0:
-        theta = math.atan2(vpy, vpx)
+        ct, st = _unit(vpx, vpy)
     else:
-        theta = 0.0
-    return theta, s, dn
+        ct, st = 1.0, 0.0
+    return ct, st, s, dn
 
 
 @kernel
-def record_velocity(b_r, phi_r, theta):
-    """u_r = b_r * (cos(theta + phi_r), sin(theta + phi_r))."""
-    ang = theta + phi_r
-    return b_r * math.cos(ang), b_r * math.sin(ang)
+def record_velocity(b_r, cphi, sphi, ct, st):
+    """u_r = b_r * R(theta) (cos phi_r, sin phi_r) with (ct, st) = (cos theta, sin theta)."""
+    return b_r * (ct * cphi - st * sphi), b_r * (st * cphi + ct * sphi)
 
 
 @kernel
-def energy(a_r, b_r, phi_r, theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
-    """Energy of record (a_r, b_r, phi_r) for one agent; terms added in the contract's order.
+def energy(a_r, b_r, cphi, sphi, ct, st, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
+    """Energy of record (a_r, b_r, phi_r) for one agent (cphi, sphi = cos, sin phi_r; ct, st = the
+    unit heading); terms added in the contract's order.
 
-    The direction cosine uses the heading angle theta+phi_r, which is the angle of u_r when
-    b_r > 0 and the contract's rule when b_r == 0. dn == 0 drops the direction term.
+    The direction cosine uses the direction theta+phi_r, which is that of u_r when b_r > 0 and the
+    contract's rule when b_r == 0. dn == 0 drops the direction term. No trigonometry per record:
+    cos and sin of phi are stored with the records.
     """
-    e, _ux, _uy = _energy_uv(a_r, b_r, phi_r, theta, s, dn, w[0], w[1], w[2], w[3], w[4], w[5],
+    e, _ux, _uy = _energy_uv(a_r, b_r, cphi, sphi, ct, st, s, dn, w[0], w[1], w[2], w[3], w[4], w[5],
                              vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
     return e
 
 
 @kernel
-def _energy_uv(a_r, b_r, phi_r, theta, s, dn, w0, w1, w2, w3, w4, w5,
+def _energy_uv(a_r, b_r, cphi, sphi, ct, st, s, dn, w0, w1, w2, w3, w4, w5,
                vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
     """`energy` with the weights as scalars (no array argument, so no refcounting in hot loops);
     also returns u_r, bitwise equal to `record_velocity`."""
-    ang = theta + phi_r
-    ca = math.cos(ang)
-    sa = math.sin(ang)
+    ca = ct * cphi - st * sphi
+    sa = st * cphi + ct * sphi
     ux = b_r * ca
     uy = b_r * sa
     ex = ux - vnx
@@ -145,6 +163,18 @@ def _allowed(ux, uy, strict, lines, i, nl):
 
 
 @kernel
+def _cos_sin(phi):
+    """cos and sin of every turn angle, by libm as `math.cos`/`math.sin` (one value per record for both
+    searches and the Python reference)."""
+    c = np.empty(phi.shape[0])
+    s = np.empty(phi.shape[0])
+    for r in range(phi.shape[0]):
+        c[r] = math.cos(phi[r])
+        s[r] = math.sin(phi[r])
+    return c, s
+
+
+@kernel
 def _bucket_of(bucket_min_a, s):
     """The last bucket whose least entry speed is <= s, clamped to 0..nb-1 (NaN: the last bucket, as
     numpy's searchsorted would sort it). A plain bisection: numba's searchsorted costs about 4x more."""
@@ -163,7 +193,7 @@ def _bucket_of(bucket_min_a, s):
 
 
 @kernel
-def _scan_agent(a, b, phi, r0, r1, theta, s, dn, w, vmax, strict, lines, i, nl,
+def _scan_agent(a, b, cphi, sphi, r0, r1, ct, st, s, dn, w, vmax, strict, lines, i, nl,
                 vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy):
     # Full scan of records r0..r1-1 in index order: first strictly smaller energy wins, so ties
     # keep the lowest index. NaN energies (only from overflow) never win.
@@ -172,13 +202,13 @@ def _scan_agent(a, b, phi, r0, r1, theta, s, dn, w, vmax, strict, lines, i, nl,
     for r in range(r0, r1):
         if b[r] > vmax:
             continue
-        e = energy(a[r], b[r], phi[r], theta, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
+        e = energy(a[r], b[r], cphi[r], sphi[r], ct, st, s, dn, w, vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
         if e != e:
             continue
         if best_r >= 0 and not e < best:
             continue
         if strict:
-            ux, uy = record_velocity(b[r], phi[r], theta)
+            ux, uy = record_velocity(b[r], cphi[r], sphi[r], ct, st)
             if not _allowed(ux, uy, strict, lines, i, nl):
                 continue
         best = e
@@ -187,13 +217,13 @@ def _scan_agent(a, b, phi, r0, r1, theta, s, dn, w, vmax, strict, lines, i, nl,
 
 
 @kernel
-def _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec):
+def _write_choice(i, best_r, b, cphi, sphi, ct, st, v_safe, out_vel, out_rec):
     if best_r < 0:
         out_vel[i, 0] = v_safe[i, 0]
         out_vel[i, 1] = v_safe[i, 1]
         out_rec[i] = -1
     else:
-        ux, uy = record_velocity(b[best_r], phi[best_r], theta)
+        ux, uy = record_velocity(b[best_r], cphi[best_r], sphi[best_r], ct, st)
         out_vel[i, 0] = ux
         out_vel[i, 1] = uy
         out_rec[i] = best_r
@@ -227,7 +257,7 @@ def _pick_weights(weights, w_solo, vgx, vgy):
 
 
 @parallel_kernel
-def choose_full(a, b, phi, bucket_start, bucket_min_a, weights, z, strict, v_now, v_pref, nav_dir,
+def choose_full(a, b, cphi, sphi, bucket_start, bucket_min_a, weights, z, strict, v_now, v_pref, nav_dir,
                 v_safe, v_group, max_speed, lines, line_count, out_vel, out_rec):
     """Reference search: every record of buckets k-z..k+z, in index order. Writes row i only."""
     n = v_now.shape[0]
@@ -241,14 +271,14 @@ def choose_full(a, b, phi, bucket_start, bucket_min_a, weights, z, strict, v_now
         vpy = v_pref[i, 1]
         dx = nav_dir[i, 0]
         dy = nav_dir[i, 1]
-        theta, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
+        ct, st, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
         best_r = -1
         if nb > 0 and a.shape[0] > 0:
             k0, k1 = _search_range(bucket_start, bucket_min_a, z, s)
-            best_r = _scan_agent(a, b, phi, bucket_start[k0], bucket_start[k1 + 1], theta, s, dn, w,
+            best_r = _scan_agent(a, b, cphi, sphi, bucket_start[k0], bucket_start[k1 + 1], ct, st, s, dn, w,
                                  max_speed[i], strict, lines, i, line_count[i], vnx, vny, vpx, vpy, dx, dy,
                                  v_safe[i, 0], v_safe[i, 1], vgx, vgy)
-        _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec)
+        _write_choice(i, best_r, b, cphi, sphi, ct, st, v_safe, out_vel, out_rec)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -516,7 +546,7 @@ def _feasible_region(strict, lines, i, nl, ct, st, b_max, vmax, node_box, tree_n
 
 
 @kernel
-def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree,
+def _search_block(lo, hi, a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree,
                   node_range, node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir,
                   v_safe, v_group, max_speed, lines, line_count, fl, fb, poly, hl, hm, cand_e, cand_p,
                   out_vel, out_rec, out_evals, out_visits, work, order, agent_bucket):
@@ -556,7 +586,7 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
             vgy = 0.0
         vmax = max_speed[i]
         nl = line_count[i]
-        theta, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
+        ct, st, s, dn = agent_frame(vnx, vny, vpx, vpy, dx, dy)
         best = np.inf
         best_r = -1
         evals = 0
@@ -572,12 +602,6 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
                 t0 = k0
                 t1 = k1
             # Quadratic terms as W*|q - c'|^2 + C0 in the heading frame.
-            if s > HEADING_EPS:  # same frame as cos/sin(theta) up to rounding, far inside the margins
-                ct = vnx / s
-                st = vny / s
-            else:
-                ct = math.cos(theta)
-                st = math.sin(theta)
             W = w0 + w2 + w4 + w5
             tx = w0 * vnx + w2 * vpx + w4 * vsx + w5 * vgx
             ty = w0 * vny + w2 * vpy + w4 * vsy + w5 * vgy
@@ -625,7 +649,7 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
                 r1 = bucket_start[k1 + 1]
                 ws = weights.copy()  # rare path: the allocation does not matter
                 ws[5] = w5
-                best_r = _scan_agent(a, b, phi, r0, r1, theta, s, dn, ws, vmax, strict, lines, i, nl,
+                best_r = _scan_agent(a, b, cphi, sphi, r0, r1, ct, st, s, dn, ws, vmax, strict, lines, i, nl,
                                      vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
                 evals = r1 - r0
                 t1 = t0 - 1  # nothing left to search
@@ -731,7 +755,9 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
                             cand_p[t] = cand_p[nc]
                             r = perm[p]
                             evals += 1
-                            e, ux, uy = _energy_uv(a[r], b[r], phi[r], theta, s, dn, w0, w1, w2, w3, w4, w5,
+                            # the record's own row: the same numbers as a[r], b[r], cphi[r], sphi[r]
+                            e, ux, uy = _energy_uv(rec_t[p, 2], rec_t[p, 5], rec_t[p, 3], rec_t[p, 4], ct, st, s,
+                                                   dn, w0, w1, w2, w3, w4, w5,
                                                    vnx, vny, vpx, vpy, dx, dy, vsx, vsy, vgx, vgy)
                             if e != e:
                                 continue
@@ -873,7 +899,7 @@ def _search_block(lo, hi, a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tr
             out_evals[i] = evals
             out_visits[i] = visits
         else:
-            _write_choice(i, best_r, b, phi, theta, v_safe, out_vel, out_rec)
+            _write_choice(i, best_r, b, cphi, sphi, ct, st, v_safe, out_vel, out_rec)
 
 
 @kernel
@@ -928,7 +954,7 @@ def _agents_by_bucket(bucket_start, bucket_min_a, v_now):
 
 
 @parallel_kernel
-def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+def _pruned_blocks(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
                    node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                    max_speed, lines, line_count, out_vel, out_rec, out_evals, out_visits, work):
     n = v_now.shape[0]
@@ -948,29 +974,29 @@ def _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node
         hm = np.empty(hcap, np.int64)
         cand_e = np.empty(most)
         cand_p = np.empty(most, np.int64)
-        _search_block(blk * _BLOCK, min((blk + 1) * _BLOCK, n), a, b, phi, bucket_start, bucket_min_a, perm,
+        _search_block(blk * _BLOCK, min((blk + 1) * _BLOCK, n), a, b, cphi, sphi, bucket_start, bucket_min_a, perm,
                       rec_t, tree_node_start, node_tree, node_range, node_box, b_max, a_max, forest_z, weights, z,
                       strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, fl, fb, poly,
                       hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work, order, agent_bucket)
 
 
 @kernel  # the prange over agent blocks is in `_pruned_blocks`
-def choose_pruned(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+def choose_pruned(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
                   node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                   max_speed, lines, line_count, out_vel, out_rec):
     """Indexed search; returns exactly the record `choose_full` returns. Writes row i only."""
     dummy = np.empty(1, np.int64)
-    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+    _pruned_blocks(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
                    node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                    max_speed, lines, line_count, out_vel, out_rec, dummy, dummy, False)
 
 
 @kernel  # the prange over agent blocks is in `_pruned_blocks`
-def pruned_work(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+def pruned_work(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
                 node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                 max_speed, lines, line_count, out_evals, out_visits):
     """Diagnostics for benchmarks: energies evaluated and tree nodes visited per agent."""
-    _pruned_blocks(a, b, phi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
+    _pruned_blocks(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tree_node_start, node_tree, node_range,
                    node_box, b_max, a_max, forest_z, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
                    max_speed, lines, line_count, np.empty((1, 2)), np.empty(1, np.int32), out_evals,
                    out_visits, True)
@@ -1074,12 +1100,13 @@ class _Forest:
 
     __slots__ = ("perm", "rec_t", "tree_node_start", "node_tree", "node_range", "node_box", "z")
 
-    def __init__(self, a, b, phi, items, tree_start, leaf_size, z):
+    def __init__(self, a, b, phi, cphi, sphi, items, tree_start, leaf_size, z):
         perm, self.tree_node_start, self.node_range, self.node_box, self.node_tree = _build_trees(
             a, b, phi, items, tree_start, leaf_size)
         self.perm = perm
-        # Tree-order rows (qx, qy, a, cos phi, sin phi, b) so leaves read memory sequentially.
-        cp, sp = np.cos(phi[perm]), np.sin(phi[perm])
+        # Tree-order rows (qx, qy, a, cos phi, sin phi, b) so leaves read memory sequentially; the exact
+        # energies read them too, so they are the index-order values gathered, bit for bit.
+        cp, sp = cphi[perm], sphi[perm]
         self.rec_t = np.ascontiguousarray(np.stack([b[perm] * cp, b[perm] * sp, a[perm], cp, sp, b[perm]], axis=1))
         self.z = z
         for name in ("perm", "rec_t", "tree_node_start", "node_tree", "node_range", "node_box"):
@@ -1110,8 +1137,8 @@ class RecordIndex:
     """
 
     WINDOW_Z_MAX = 8
-    __slots__ = ("a", "b", "phi", "bucket_start", "bucket_min_a", "items", "item_start", "base", "_windows",
-                 "b_max", "a_max", "leaf_size")
+    __slots__ = ("a", "b", "phi", "cphi", "sphi", "bucket_start", "bucket_min_a", "items", "item_start", "base",
+                 "_windows", "b_max", "a_max", "leaf_size")
 
     @classmethod
     def build(cls, a, b=None, phi=None, bucket_start=None, bucket_min_a=None, leaf_size=32):
@@ -1127,13 +1154,14 @@ class RecordIndex:
         items, item_start = _distinct_items(a, b, phi, bs)
         self = object.__new__(cls)
         self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a = a, b, phi, bs, bma
+        self.cphi, self.sphi = _cos_sin(phi)
         self.items, self.item_start = items, item_start
         self.leaf_size = int(leaf_size)
-        self.base = _Forest(a, b, phi, items, item_start, self.leaf_size, -1)
+        self.base = _Forest(a, b, phi, self.cphi, self.sphi, items, item_start, self.leaf_size, -1)
         self._windows = {}
         self.b_max = float(b.max()) if len(b) else 0.0
         self.a_max = float(np.abs(a).max()) if len(a) else 0.0
-        for name in ("a", "b", "phi", "bucket_start", "bucket_min_a", "items", "item_start"):
+        for name in ("a", "b", "phi", "cphi", "sphi", "bucket_start", "bucket_min_a", "items", "item_start"):
             getattr(self, name).setflags(write=False)
         return self
 
@@ -1145,7 +1173,8 @@ class RecordIndex:
         f = self._windows.get(z)
         if f is None:  # a race between threads only builds the same forest twice
             items, start = _window_items(self.items, self.item_start, z)
-            f = self._windows[z] = _Forest(self.a, self.b, self.phi, items, start, self.leaf_size, z)
+            f = self._windows[z] = _Forest(self.a, self.b, self.phi, self.cphi, self.sphi, items, start,
+                                           self.leaf_size, z)
         return f
 
     @property
@@ -1158,13 +1187,13 @@ class RecordIndex:
 
     def full_args(self):
         """Leading arguments of `choose_full`."""
-        return self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a
+        return self.a, self.b, self.cphi, self.sphi, self.bucket_start, self.bucket_min_a
 
     def pruned_args(self, z=None):
         """Leading arguments of `choose_pruned` (and `pruned_work`) for search width z; without z, the
         base forest's, which serve any width."""
         f = self.forest(z)
-        return (self.a, self.b, self.phi, self.bucket_start, self.bucket_min_a, f.perm, f.rec_t,
+        return (self.a, self.b, self.cphi, self.sphi, self.bucket_start, self.bucket_min_a, f.perm, f.rec_t,
                 f.tree_node_start, f.node_tree, f.node_range, f.node_box, self.b_max, self.a_max, f.z)
 
     def run(self, kernel_fn, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed,
@@ -1273,7 +1302,8 @@ def choose(records, weights, z, strict, v_now, v_pref, nav_dir, v_safe, v_group,
         index = RecordIndex.build(*_record_arrays(records))
     else:
         index = None
-        full = _check_records(*_record_arrays(records))
+        a_, b_, phi_, bs_, bma_ = _check_records(*_record_arrays(records))
+        full = (a_, b_) + _cos_sin(phi_) + (bs_, bma_)
     if out_vel is None:
         out_vel = np.empty((n, 2))
     if out_rec is None:

@@ -21,23 +21,36 @@ SETTINGS = dict(deadline=None, suppress_health_check=[HealthCheck.too_slow])
 # ---------------------------------------------------------------------------------------------
 # Slow, obvious reference (straight from the energy definition in the shared contract)
 
+def ref_unit(x, y):
+    m = max(abs(x), abs(y))
+    if m == 0.0:
+        return 0.0, 0.0
+    if not 1e-150 < m < 1e150:
+        x, y = x / m, y / m
+    h = math.sqrt(x * x + y * y)
+    return x / h, y / h
+
+
 def ref_heading(vn, vp, d):
+    """Contract: unit heading = direction of v_now; below 1e-9 m/s the navigation direction's, else the
+    preferred velocity's, else +x."""
     s = math.sqrt(vn[0] * vn[0] + vn[1] * vn[1])
     dn = math.sqrt(d[0] * d[0] + d[1] * d[1])
     if s > 1e-9:
-        theta = math.atan2(vn[1], vn[0])
-    elif dn > 0.0:
-        theta = math.atan2(d[1], d[0])
+        ct, st = ref_unit(*vn)
+    elif d[0] != 0.0 or d[1] != 0.0:
+        ct, st = ref_unit(*d)
     elif vp[0] != 0.0 or vp[1] != 0.0:
-        theta = math.atan2(vp[1], vp[0])
+        ct, st = ref_unit(*vp)
     else:
-        theta = 0.0
-    return theta, s, dn
+        ct, st = 1.0, 0.0
+    return ct, st, s, dn
 
 
-def ref_energy(a_r, b_r, phi_r, theta, s, dn, w, vn, vp, d, vs, vg):
-    ang = theta + phi_r
-    ca, sa = math.cos(ang), math.sin(ang)
+def ref_energy(a_r, b_r, phi_r, ct, st, s, dn, w, vn, vp, d, vs, vg):
+    """Contract: u_r = b_r * (cos(theta + phi_r), sin(theta + phi_r)), by the angle-sum formulas."""
+    cp, sp = math.cos(phi_r), math.sin(phi_r)
+    ca, sa = ct * cp - st * sp, st * cp + ct * sp
     u = (b_r * ca, b_r * sa)
 
     def sq(p):
@@ -59,7 +72,7 @@ def ref_choose(recs, w, z, strict, agents, i):
     v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count = agents
     vn, vp, d = [float(x) for x in v_now[i]], [float(x) for x in v_pref[i]], [float(x) for x in nav_dir[i]]
     vs, vg = [float(x) for x in v_safe[i]], [float(x) for x in v_group[i]]
-    theta, s, dn = ref_heading(vn, vp, d)
+    ct, st, s, dn = ref_heading(vn, vp, d)
     nb = len(bucket_start) - 1
     if len(a) == 0 or nb == 0:
         return -1, tuple(vs)
@@ -67,7 +80,7 @@ def ref_choose(recs, w, z, strict, agents, i):
     lo, hi = max(0, k - z), min(nb - 1, k + z)
     best, best_r, best_u = None, -1, None
     for r in range(int(bucket_start[lo]), int(bucket_start[hi + 1])):
-        e, u = ref_energy(float(a[r]), float(b[r]), float(phi[r]), theta, s, dn, [float(x) for x in w],
+        e, u = ref_energy(float(a[r]), float(b[r]), float(phi[r]), ct, st, s, dn, [float(x) for x in w],
                           vn, vp, d, vs, vg)
         if b[r] > max_speed[i] or math.isnan(e):
             continue
@@ -176,7 +189,7 @@ def boundary_lines(rng, index, agents, first, L=3):
     n = v_now.shape[0]
     lines = np.zeros((n, L, 4))
     for i in range(n):
-        theta, s, _ = ch.agent_frame(*v_now[i], *v_pref[i], *nav_dir[i])
+        ct, st, s, _ = ch.agent_frame(*v_now[i], *v_pref[i], *nav_dir[i])
         k = min(max(bisect.bisect_right(list(index.bucket_min_a), s) - 1, 0), index.n_buckets - 1)
         lo, hi = index.bucket_start[k], index.bucket_start[k + 1]
         for j in range(L):
@@ -184,7 +197,7 @@ def boundary_lines(rng, index, agents, first, L=3):
                 r = int(first[i])
             else:
                 r = int(rng.integers(lo, hi)) if hi > lo else -1
-            ux, uy = ch.record_velocity(index.b[r], index.phi[r], theta) if r >= 0 else (0.0, 0.0)
+            ux, uy = ch.record_velocity(index.b[r], index.cphi[r], index.sphi[r], ct, st) if r >= 0 else (0.0, 0.0)
             d = _unit(rng.uniform(-np.pi, np.pi, 1))[0]
             shift = rng.choice([0.0, 0.5e-9, 1e-9, 1.0000001e-9, 1.5e-9, 3e-9])  # towards the violated side
             t = rng.uniform(-1.0, 1.0)
@@ -237,16 +250,22 @@ def test_full_scan_matches_reference(seed, n_rec, buckets, z, strict, w, ties):
 def test_energy_kernel_matches_reference_bitwise():
     rng = np.random.default_rng(3)
     w = np.array([1.0, 0.5, 2.0, 3.0, 0.25, 1.5])
-    for _ in range(300):
+    for k in range(300):
         a_r, b_r = rng.uniform(0, 2, 2)
         phi_r = rng.uniform(-np.pi, np.pi)
         vn, vp, d, vs, vg = rng.normal(0, 1, (5, 2))
-        theta, s, dn = ch.agent_frame(vn[0], vn[1], vp[0], vp[1], d[0], d[1])
-        assert (theta, s, dn) == ref_heading(list(vn), list(vp), list(d))
-        e = ch.energy(a_r, b_r, phi_r, theta, s, dn, w, *vn, *vp, *d, *vs, *vg)
-        e_ref, u_ref = ref_energy(a_r, b_r, phi_r, theta, s, dn, list(w), vn, vp, d, vs, vg)
+        if k % 10 == 0:  # standing agents take the heading of d, else of v_pref, else +x
+            vn[:] = 0.0
+            d[:] = 0.0 if k % 20 == 0 else d
+            vp[:] = 0.0 if k % 40 == 0 else vp
+        ct, st, s, dn = ch.agent_frame(vn[0], vn[1], vp[0], vp[1], d[0], d[1])
+        assert (ct, st, s, dn) == ref_heading(list(vn), list(vp), list(d))
+        cp, sp = ch._cos_sin(np.array([phi_r]))
+        assert (cp[0], sp[0]) == (math.cos(phi_r), math.sin(phi_r))  # libm, as the reference
+        e = ch.energy(a_r, b_r, cp[0], sp[0], ct, st, s, dn, w, *vn, *vp, *d, *vs, *vg)
+        e_ref, u_ref = ref_energy(a_r, b_r, phi_r, ct, st, s, dn, list(w), vn, vp, d, vs, vg)
         assert e == e_ref
-        assert ch.record_velocity(b_r, phi_r, theta) == u_ref
+        assert ch.record_velocity(b_r, cp[0], sp[0], ct, st) == u_ref
 
 
 # ---------------------------------------------------------------------------------------------

@@ -34,7 +34,7 @@ the same energy and velocity, so the full scan (first strictly smaller energy wi
 
 Two things make the search fast in practice without touching what it returns:
 - Window forests. Searching 2z+1 separate bucket trees means 2z+1 descents. For 1 <= z <= 8 the
-  index builds, on first use of that z, one tree per bucket k over all records of buckets k-z..k+z
+  index builds, on first use of that z by 1,000 agents or more, one tree per bucket k over all records of buckets k-z..k+z
   (the agent's whole window), so each agent descends one tree. Records are stored 2z+1 times
   (about 30 MB at z = 3 for 80,000 records), and the choice runs 1.5-1.8x faster (square-1 and
   square-2, 10,000 agents, one thread).
@@ -1137,6 +1137,10 @@ class RecordIndex:
     """
 
     WINDOW_Z_MAX = 8
+    # Below this many agents `run` builds no window forest (it uses one if built): the build (about
+    # 0.25 s at z = 3 on 2 cores) would outweigh what it saves a small crowd, and would slow a host's
+    # first frame. The result is the same record with either forest.
+    WINDOW_MIN_AGENTS = 1000
     __slots__ = ("a", "b", "phi", "cphi", "sphi", "bucket_start", "bucket_min_a", "items", "item_start", "base",
                  "_windows", "b_max", "a_max", "leaf_size")
 
@@ -1209,7 +1213,8 @@ class RecordIndex:
         if kernel_fn is choose_full:
             lead = self.full_args()
         elif kernel_fn is choose_pruned:
-            lead = self.pruned_args(int(z))
+            z_forest = int(z) if n >= self.WINDOW_MIN_AGENTS or int(z) in self._windows else None
+            lead = self.pruned_args(z_forest)
         else:
             raise StepError("kernel_fn must be choose_full or choose_pruned")
         if n:

@@ -228,6 +228,14 @@ def run(kernel_fn, index, w, z, strict, agents):
     return vel, rec
 
 
+def run_forest(index, forest_z, w, z, strict, agents):
+    """The pruned search on a given forest: None = one tree per bucket (2z+1 roots), z = window trees."""
+    n = agents[0].shape[0]
+    vel, rec = np.full((n, 2), np.nan), np.full(n, -7, np.int32)
+    ch.choose_pruned(*index.pruned_args(forest_z), w, z, strict, *agents, vel, rec)
+    return vel, rec
+
+
 # ---------------------------------------------------------------------------------------------
 # (a) kernel full scan == Python reference
 
@@ -281,14 +289,11 @@ def test_pruned_equals_full(seed, n_rec, buckets, z, strict, w, ties, leaf, line
     agents = make_agents(rng, 200, lines_max=lines_max)
     index = ch.RecordIndex.build(*recs, leaf_size=leaf)
     vel_f, rec_f = run(ch.choose_full, index, w, z, strict, agents)
-    vel_p, rec_p = run(ch.choose_pruned, index, w, z, strict, agents)
-    np.testing.assert_array_equal(rec_p, rec_f)
-    assert np.array_equal(vel_p, vel_f)
-    # the base forest (one tree per bucket, 2z+1 roots) serves widths without a window forest
-    vel_b, rec_b = np.full_like(vel_f, np.nan), np.full_like(rec_f, -7)
-    ch.choose_pruned(*index.pruned_args(), w, z, strict, *agents, vel_b, rec_b)
-    np.testing.assert_array_equal(rec_b, rec_f)
-    assert np.array_equal(vel_b, vel_f)
+    # both forests: one tree per bucket window, and one per bucket (2z+1 roots; small crowds, wide z)
+    for forest_z in (z, None):
+        vel_p, rec_p = run_forest(index, forest_z, w, z, strict, agents)
+        np.testing.assert_array_equal(rec_p, rec_f)
+        assert np.array_equal(vel_p, vel_f)
     none = rec_f < 0
     np.testing.assert_array_equal(vel_f[none], agents[3][none])
 
@@ -305,9 +310,10 @@ def test_pruned_equals_full_orca_like(seed, n_rec, buckets, z, w, ties, leaf, L,
     agents[6], agents[7] = orca_like_lines(rng, agents, L, blocked)
     index = ch.RecordIndex.build(*recs, leaf_size=leaf)
     vel_f, rec_f = run(ch.choose_full, index, w, z, True, agents)
-    vel_p, rec_p = run(ch.choose_pruned, index, w, z, True, agents)
-    np.testing.assert_array_equal(rec_p, rec_f)
-    assert np.array_equal(vel_p, vel_f)
+    for forest_z in (z, None):
+        vel_p, rec_p = run_forest(index, forest_z, w, z, True, agents)
+        np.testing.assert_array_equal(rec_p, rec_f)
+        assert np.array_equal(vel_p, vel_f)
     if n_rec and blocked == 1.0:  # every agent has two disjoint half-planes (gap 1e-3 m/s or more)
         assert (rec_f == -1).all()
 
@@ -361,6 +367,13 @@ def test_window_forests_hold_each_window_once_and_are_built_once():
         m0, m1 = f.tree_node_start[k], f.tree_node_start[k + 1]
         tree = sorted(f.perm[f.node_range[m0, 0]:f.node_range[m0, 1]].tolist()) if m1 > m0 else []
         assert tree == index.items[lo:hi].tolist()
+    # RecordIndex.run builds a window forest only for crowds worth it; the records are the same either way
+    index2 = ch.RecordIndex.build(*make_records(rng, 600, 12), leaf_size=4)
+    few, many = make_agents(rng, 10), make_agents(rng, ch.RecordIndex.WINDOW_MIN_AGENTS)
+    run(ch.choose_pruned, index2, np.ones(6), 1, True, few)
+    assert 1 not in index2._windows
+    run(ch.choose_pruned, index2, np.ones(6), 1, True, many)
+    assert 1 in index2._windows
     with pytest.raises(ValueError, match="another search width"):
         agents = make_agents(rng, 5)
         ch.pruned_work(*index.pruned_args(2), np.ones(6), 3, True, *agents, np.empty(5, np.int64),

@@ -33,7 +33,7 @@ Each bucket's tree holds one copy of records with bitwise-identical (a, b, phi):
 the same energy and velocity, so the full scan (first strictly smaller energy wins) never picks it.
 
 Two things make the search fast in practice without touching what it returns:
-- Window forests. Searching 2z+1 separate bucket trees means 2z+1 descents. For 1 <= z <= 8 the
+- Window forests. Searching 2z+1 separate bucket trees means 2z+1 descents. For 1 <= z <= 3 the
   index builds, on first use of that z by 1,000 agents or more, one tree per bucket k over all records of buckets k-z..k+z
   (the agent's whole window), so each agent descends one tree. Records are stored 2z+1 times
   (about 30 MB at z = 3 for 80,000 records), and the choice runs 1.5-1.8x faster (square-1 and
@@ -1136,7 +1136,7 @@ class RecordIndex:
     search time: one descent instead of 2z+1. Built in O(N log N); read-only afterwards.
     """
 
-    WINDOW_Z_MAX = 8
+    WINDOW_Z_MAX = 3  # the default width and below: a window forest holds each record 2z+1 times
     # Below this many agents `run` builds no window forest (it uses one if built): the build (about
     # 0.25 s at z = 3 on 2 cores) would outweigh what it saves a small crowd, and would slow a host's
     # first frame. The result is the same record with either forest.

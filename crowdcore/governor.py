@@ -10,12 +10,11 @@ Cost model (ms per frame), fitted per machine:
 c0: fixed cost per step; c_agent: per-agent work that depends on neither K nor z (index, navigate,
 move, account, the choice's own set-up); c_nbr: per agent and neighbour (sense, avoid); c_cand:
 per agent and speed bucket searched; c_wide: the step from searching one bucket to searching its
-neighbours too. The pruned search cuts most outer buckets at their roots, so on a dense record set
-the choice costs about the same for every z >= 1 and clearly less at z = 0: a cost linear in 2z + 1
-alone overestimated wide searches and underestimated narrow ones (measured: 8.6 tree nodes per
-agent at z = 0, 17.4 at z = 1, 17.6 at z = 3 and 5, square-1 with 10,000 agents). All coefficients
-are >= 0, so the estimate never falls when n, K or z grow. Four numbers (the model without c_wide)
-are still accepted.
+neighbours too. The pruned search prunes most outer records early, so the choice grows much less
+than 2z + 1 and jumps once from z = 0 to z = 1 (measured, choose phase, square-1 with 5,000 agents on
+2 cores: 5.4 ms at z = 0, 7.0 at 1, 8.3 at 2, 9.5 at 3, 10.8 at 5 and 8): a cost linear in 2z + 1
+alone overestimated wide searches and underestimated narrow ones. All coefficients are >= 0, so the
+estimate never falls when n, K or z grow. Four numbers (the model without c_wide) are still accepted.
 
 plan() aims at HEADROOM x the budget: single frames scatter by about +-10% around the model on a
 shared 2-core machine (measured), and a governor that plans to the last millisecond overshoots half

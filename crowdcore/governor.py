@@ -150,6 +150,7 @@ def run_governed(budget_ms, coeffs, start=200, add=100, every=1, frames=40, z_ma
     w = lay.world(0, seed)
     w.add_agents(lay.positions[:start], target=lay.target[:start], pref_speed=speeds[:start])
     used = start
+    w._prepare_forests(z_max)  # as a governed world does when its budget is set: no frame pays a build
     if builtin:
         w.set_params(budget_ms=float(budget_ms), budget_coeffs=list(coeffs), search_width=z_max, neighbours=k_max)
     rec = None

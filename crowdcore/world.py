@@ -93,6 +93,8 @@ class World:
         self.name = ""
         self.default_frames = 600
         self._rebuild_scene()
+        if self.params.budget_ms > 0:
+            self._prepare_forests(self.params.search_width)
 
     # ------------------------------------------------------------------ construction
     @classmethod
@@ -147,7 +149,15 @@ class World:
             except Exception:
                 self.params = old
                 raise
+        if new.budget_ms > 0:
+            self._prepare_forests(new.search_width)
         self._log("set_params", **({**changes, "weights": weights} if weights is not None else changes))
+
+    def _prepare_forests(self, z_max):
+        """Build the search forests of every width up to z_max now (a budget governor may pick any of
+        them), so that no budgeted frame pays for a build."""
+        for z in range(1, min(int(z_max), RecordIndex.WINDOW_Z_MAX) + 1):
+            self._index.forest(z)
 
     def _log(self, _command, **args):
         if self._journal is not None:
@@ -378,8 +388,7 @@ class World:
 
         z, k = p.search_width, p.neighbours
         if p.budget_ms > 0:  # a pure function of n and stored numbers: replays make the same choice
-            for zz in range(1, min(z, RecordIndex.WINDOW_Z_MAX) + 1):
-                self._index.forest(zz)  # every width the governor may pick, built before a budgeted frame
+            self._prepare_forests(z)  # normally done by set_params already: then only lookups
             z, k = plan(n, p.budget_ms, p.budget_coeffs, z_max=z, k_min=min(4, k), k_max=k)
         nbr = np.empty((n, k), np.int32)
         nbr_count = np.empty(n, np.int32)

@@ -276,6 +276,18 @@ def test_energy_kernel_matches_reference_bitwise():
         assert ch.record_velocity(b_r, cp[0], sp[0], ct, st) == u_ref
 
 
+def test_heading_of_extreme_velocities_is_a_unit_vector():
+    # squares of 1e200 overflow and of 1e-200 underflow: the heading must still be the direction
+    for v in ((1e200, 1e200), (-3e-200, 4e-200), (1e-320, 0.0), (0.0, -1e308)):
+        ct, st, s, _dn = ch.agent_frame(v[0], v[1], 0.0, 0.0, 1.0, 0.0)
+        if s > ch.HEADING_EPS:
+            want = np.array(v) / np.hypot(v[0] / max(map(abs, v)), v[1] / max(map(abs, v))) / max(map(abs, v))
+            np.testing.assert_allclose((ct, st), want, rtol=1e-15)
+        else:  # standing: the navigation direction's heading
+            assert (ct, st) == (1.0, 0.0)
+        assert (ct, st) == ref_heading(list(v), [0.0, 0.0], [1.0, 0.0])[:2]
+
+
 # ---------------------------------------------------------------------------------------------
 # (b) pruned == full scan, exactly
 

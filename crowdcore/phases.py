@@ -8,7 +8,7 @@ import numpy as np
 from numba import prange
 
 from ._jit import kernel, parallel_kernel
-from .navfield import sample_dir
+from .navfield import sample_dir, sample_dist
 from .spatial import walls_near, segments_cross
 
 TARGET_CIRCLE = 0
@@ -36,6 +36,14 @@ def navigate_phase(pos, pref_speed, target, dirs, ox, oy, h, nx, ny, pref_vel, n
         nav_dir[i, 1] = dy
         pref_vel[i, 0] = pref_speed[i] * dx
         pref_vel[i, 1] = pref_speed[i] * dy
+
+
+@parallel_kernel
+def route_distance_phase(pos, target, dists, ox, oy, h, nx, ny, out):
+    """Remaining route distance of each agent to its own target (inf without one)."""
+    n = pos.shape[0]
+    for i in prange(n):
+        out[i] = sample_dist(dists, target[i], ox, oy, h, nx, ny, pos[i, 0], pos[i, 1])
 
 
 @parallel_kernel

@@ -421,9 +421,13 @@ class World:
         line_count = np.zeros(n, np.int32)
         v_safe = np.empty((n, 2))
         if p.avoidance == "orca":
+            route_dist = np.full(n, np.inf)   # the queue gap's order of who is ahead on a shared route
+            if p.queue_gap > 0:
+                phases.route_distance_phase(pos, a["target"], nav.dist, nav.ox, nav.oy, nav.h, nav.nx, nav.ny,
+                                            route_dist)
             orca_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,
-                       c.wall_items, *wg.args, p.orca_tau, p.orca_tau_walls, dt, nav_dir, p.queue_gap, lines,
-                       line_count, v_safe)
+                       c.wall_items, *wg.args, p.orca_tau, p.orca_tau_walls, dt, nav_dir, route_dist, a["target"],
+                       p.queue_gap, lines, line_count, v_safe)
         else:
             sf = SocialForceParams()
             social_force_phase(pos, vel, a["radius"], max_speed, pref_vel, nbr, nbr_count, c.segments, c.wall_start,

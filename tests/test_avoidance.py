@@ -120,8 +120,8 @@ def run_orca(pos, vel, rad, vmax, pref, nbr, cnt, walls, grid, p=OrcaParams(), d
     lines = np.zeros((n, L, 4))
     lc = np.zeros(n, np.int32)
     vs = np.zeros((n, 2))
-    orca_phase(pos, vel, rad, vmax, pref, nbr, cnt, walls, *grid, p.tau, p.tau_obst, dt, np.zeros((n, 2)), 0.0,
-               lines, lc, vs)  # queue_gap 0: plain ORCA
+    orca_phase(pos, vel, rad, vmax, pref, nbr, cnt, walls, *grid, p.tau, p.tau_obst, dt, np.zeros((n, 2)),
+               np.zeros(n), np.zeros(n, np.int32), 0.0, lines, lc, vs)  # queue_gap 0: plain ORCA
     return vs, lines, lc
 
 
@@ -427,6 +427,38 @@ def test_orca_single_cell_grid_same_as_grid(kind):
     b = run_orca(pos, pref * 0.5, rad, 1.3 * speed, pref, nbr, cnt, walls, wall_grid(walls))[0]
     np.testing.assert_array_equal(a, b)
 
+
+
+def test_queue_gap_only_the_agent_further_back_keeps_room():
+    # Two agents standing at the two corners of an opening, both routes converging on it: each one's
+    # offset projects ahead on the other's route. Only the one with more route left may keep the queue
+    # gap, else each holds the other off and neither steps in (our own rule: a property, no outside value).
+    pos = np.array([[0.0, 0.3], [0.0, -0.3]])
+    nav = np.array([[0.6, -0.8], [0.6, 0.8]])
+    vel = np.zeros((2, 2))
+    rad = np.full(2, 0.25)
+    pref = 1.3 * nav
+    nbr = np.array([[1], [0]], np.int32)
+    cnt = np.ones(2, np.int32)
+    walls = np.zeros((0, 4))
+    grid = single_cell(walls)
+
+    def lines_for(route_dist, target, gap):
+        lines = np.zeros((2, 17, 4))
+        lc = np.zeros(2, np.int32)
+        vs = np.zeros((2, 2))
+        orca_phase(pos, vel, rad, np.full(2, 1.7), pref, nbr, cnt, walls, *grid, 2.0, 0.5, DT, nav,
+                   np.asarray(route_dist, float), np.asarray(target, np.int32), gap, lines, lc, vs)
+        return lines[:, 0]
+
+    plain = lines_for([3.0, 3.0], [0, 0], 0.0)
+    back = lines_for([3.2, 3.0], [0, 0], 0.3)          # agent 0 has more route left
+    assert not np.array_equal(back[0], plain[0])       # agent 0 keeps room from agent 1
+    np.testing.assert_array_equal(back[1], plain[1])   # agent 1 does not: it may step in
+    tie = lines_for([3.0, 3.0], [0, 0], 0.3)           # equal route left: neither is ahead
+    np.testing.assert_array_equal(tie, plain)
+    other = lines_for([3.0, 3.0], [0, 1], 0.3)         # bound for different targets: projection only
+    assert not np.array_equal(other[0], plain[0]) and not np.array_equal(other[1], plain[1])
 
 # ------------------------------------------------------------------ Social Force
 

@@ -106,8 +106,8 @@ def _pinned_outputs():
     lines = np.zeros((n, cap, 4))
     lc = np.zeros(n, np.int32)
     vs = np.zeros((n, 2))
-    orca_phase(pos, vel, radius, vmax, pref, nbr, cnt, WALLS, ws, wi, *wg.args, 2.0, 0.5, 0.1, np.zeros((n, 2)), 0.0,
-               lines, lc, vs)  # queue_gap 0: plain ORCA
+    orca_phase(pos, vel, radius, vmax, pref, nbr, cnt, WALLS, ws, wi, *wg.args, 2.0, 0.5, 0.1, np.zeros((n, 2)),
+               np.zeros(n), np.zeros(n, np.int32), 0.0, lines, lc, vs)  # queue_gap 0: plain ORCA
     used = np.arange(cap)[None, :] < lc[:, None]
     out = np.zeros((n, 2))
     changed = np.zeros(n, np.bool_)

@@ -365,9 +365,9 @@ class BudgetConfig:
     curve_scenes: tuple = SCENES                 # scenes measured at every count
     other_scenes_at: int = 5000                  # the remaining scenes at this one count
     frames: int = 7
-    warmup: int = 2
+    warmup: int = 5                              # untimed frames first: a crowd starting from rest is a transient
     search_start: int = 2000
-    search_frames: int = 5
+    search_frames: int = 7
     search_tol: float = 0.03
     search_max: int = 1 << 20
     governor_max: int = 100000
@@ -386,7 +386,7 @@ class BudgetConfig:
 
 FULL = BudgetConfig()
 QUICK = BudgetConfig(counts=(1000, 2000, 5000, 10000, 20000), curve_scenes=("square-1",), other_scenes_at=5000,
-                     frames=5, warmup=2, search_start=1000, search_frames=3, search_tol=0.1, search_max=200000,
+                     frames=5, warmup=5, search_start=1000, search_frames=7, search_tol=0.1, search_max=200000,
                      governor_max=40000, buckets=(25, 100, 400), sweep_n=5000, ratio_n=5000, hash_n=10000,
                      repeat=3, governor_frames=40, calibrate_n=0, deadline_s=95.0)
 TINY = BudgetConfig(counts=(30, 60), curve_scenes=("square-1",), other_scenes_at=30, frames=2, warmup=1,

@@ -22,6 +22,7 @@ extern "Python" {
     int32_t cc__py_world_add_target_circle(cc_world, const char *, double, double, double, int32_t *);
     int32_t cc__py_world_add_target_rect(cc_world, const char *, double, double, double, double, int32_t *);
     int32_t cc__py_world_set_bounds(cc_world, double, double, double, double);
+    int32_t cc__py_world_set_params(cc_world, const char *);
     int32_t cc__py_world_add_agents(cc_world, const cc_agent_def *, int32_t, int32_t *);
     int32_t cc__py_world_remove_agents(cc_world, const int32_t *, int32_t);
     int32_t cc__py_world_set_agent_target(cc_world, int32_t, int32_t);

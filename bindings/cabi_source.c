@@ -221,6 +221,9 @@ CC_EXPORT int32_t cc_world_add_agents(cc_world w, const cc_agent_def *defs, int3
 CC_EXPORT int32_t cc_world_remove_agents(cc_world w, const int32_t *ids, int32_t count)
 { CC_ENTER(); return cc__py_world_remove_agents(w, ids, count); }
 
+CC_EXPORT int32_t cc_world_set_params(cc_world w, const char *toml_text)
+{ CC_ENTER(); return cc__py_world_set_params(w, toml_text); }
+
 CC_EXPORT int32_t cc_world_set_agent_target(cc_world w, int32_t id, int32_t target)
 { CC_ENTER(); return cc__py_world_set_agent_target(w, id, target); }
 

@@ -31,7 +31,7 @@ extern "C" {
 
 /* @cdef-begin (this block is also the cffi declaration source: constants, typedefs and structs only) */
 #define CC_ABI_VERSION_MAJOR 1
-#define CC_ABI_VERSION_MINOR 1
+#define CC_ABI_VERSION_MINOR 2
 #define CC_ABI_VERSION_PATCH 0
 
 /* Status codes. */
@@ -159,6 +159,7 @@ CC_API int32_t cc_world_add_obstacle(cc_world w, const double *xy, int32_t point
 CC_API int32_t cc_world_add_target_circle(cc_world w, const char *name, double cx, double cy, double r, int32_t *out_index); /* Circular target (m); unique name; *out_index = its index (out_index may be NULL). */
 CC_API int32_t cc_world_add_target_rect(cc_world w, const char *name, double xmin, double ymin, double xmax, double ymax, int32_t *out_index); /* Rectangular target (m); unique name; *out_index may be NULL. */
 CC_API int32_t cc_world_set_bounds(cc_world w, double xmin, double ymin, double xmax, double ymax);  /* Grow the simulated area to cover this box (m). */
+CC_API int32_t cc_world_set_params(cc_world w, const char *toml_text);  /* Change parameters now: TOML with the keys of a scenario's [params] (or that table), e.g. "search_width = 2\nweights = { avoidance = 4.0 }"; validated as a whole, all or nothing; recorded. */
 
 /* --- agents --- */
 CC_API int32_t cc_world_add_agents(cc_world w, const cc_agent_def *defs, int32_t count, int32_t *out_ids); /* Add count agents (all or none); out_ids (count slots, may be NULL) receives their new ids. */

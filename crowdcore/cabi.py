@@ -112,7 +112,7 @@ def describe(out_dir=None):
     ])
 
 
-ABI_VERSION = (1, 0, 0)
+ABI_VERSION = (1, 2, 0)
 
 
 # ====================================================================== adapter
@@ -451,6 +451,36 @@ def _bind(ffi, lib):
         if not (x0 < x1 and y0 < y1):
             raise _Fail(ERR_RANGE, f"bounds: need xmin < xmax and ymin < ymax, got {[x0, y0, x1, y1]}")
         scene_edit(s.world.set_bounds, x0, y0, x1, y1)
+
+    # -------------------------------------------------------------- parameters
+    def non_finite(table, path):
+        """The key path of the first NaN or infinite number in a parsed TOML table, else None."""
+        for k, v in table.items():
+            where = f"{path}.{k}" if path else k
+            if isinstance(v, dict):
+                bad = non_finite(v, where)
+                if bad:
+                    return bad
+            elif isinstance(v, float) and not math.isfinite(v):
+                return f"{where} = {v!r}"
+        return None
+
+    @export("world_set_params", mutates=True)
+    def world_set_params(s, toml_text):
+        import tomllib
+        t = text_arg(toml_text, "toml_text")
+        try:
+            table = tomllib.loads(t)
+        except tomllib.TOMLDecodeError as e:
+            raise _Fail(ERR_INVALID, f"toml_text: not TOML: {e}") from None
+        if set(table) == {"params"} and isinstance(table["params"], dict):
+            table = table["params"]     # a [params] table as in a scenario file, or its keys alone
+        if not table:
+            raise _Fail(ERR_INVALID, "toml_text: no parameters given")
+        bad = non_finite(table, "params")
+        if bad:
+            raise _Fail(ERR_NOT_FINITE, f"{bad}: must be finite")
+        s.world.set_params(**table)     # validated as a whole: a ScenarioError names the key, nothing changes
 
     # -------------------------------------------------------------- agents
     @export("world_add_agents", mutates=True)

@@ -233,10 +233,33 @@ int main(void)
     expect("empty snapshot", cc_world_load_snapshot(w, junk, 0), CC_ERR_SNAPSHOT);
     expect("missing snapshot file", cc_world_load_file(w, "/nonexistent/x.snap"), CC_ERR_IO);
     expect("unwritable snapshot file", cc_world_save_file(w, "/nonexistent/dir/x.snap"), CC_ERR_IO);
+    expect("set_params handle 0", cc_world_set_params(0, "search_width = 1"), CC_ERR_HANDLE);
+    expect("set_params NULL text", cc_world_set_params(w, NULL), CC_ERR_NULL);
+    expect("set_params not TOML", cc_world_set_params(w, "search_width = "), CC_ERR_INVALID);
+    expect("set_params nothing", cc_world_set_params(w, ""), CC_ERR_INVALID);
+    expect("set_params unknown key", cc_world_set_params(w, "search_width = 1\nspeeed = 2"), CC_ERR_INVALID);
+    expect("set_params out of range", cc_world_set_params(w, "search_width = 1\nqueue_gap = -1.0"), CC_ERR_INVALID);
+    expect("set_params NaN", cc_world_set_params(w, "search_width = 1\nweights = { avoidance = nan }"),
+           CC_ERR_NOT_FINITE);
+    expect("set_params inf", cc_world_set_params(w, "[params]\nqueue_gap = inf"), CC_ERR_NOT_FINITE);
 
     /* ---- every error above left the world unchanged */
     hash_of(w, after);
     truth("world unchanged by all the refused calls", strcmp(before, after) == 0);
+
+    /* ---- parameters change at run time (all or nothing): the next step uses them */
+    {
+        cc_step_stats st;
+        expect("set_params", cc_world_set_params(w, "search_width = 1\nneighbours = 6\nweights = { avoidance = 4.0 }"),
+               CC_OK);
+        expect("step after set_params", cc_world_step(w, 0.1), CC_OK);
+        expect("stats after set_params", cc_world_get_step_stats(w, &st), CC_OK);
+        truth("the step used the new search width and neighbour count", st.search_width == 1 && st.neighbours == 6);
+        expect("set_params as a [params] table", cc_world_set_params(w, "[params]\nsearch_width = 3\nneighbours = 10"),
+               CC_OK);
+        expect("step after restoring", cc_world_step(w, 0.1), CC_OK);
+        hash_of(w, before);     /* the snapshot checks below start from here */
+    }
 
     /* ---- a truncated snapshot is refused and changes nothing; a good one round-trips */
     {

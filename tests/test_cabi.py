@@ -87,6 +87,11 @@ def test_flags_and_describe(native):
     assert f"-L{native}" in libs and "-lcrowdcore" in libs and f"-Wl,-rpath,{native}" in libs
     assert os.path.exists(cabi.library_path(native)) and os.path.exists(os.path.join(native, "crowdcore.h"))
     assert "(built)" in cabi.describe(native)
+    with open(os.path.join(ROOT, "bindings", "crowdcore.h")) as f:
+        header = f.read()
+    version = tuple(int(re.search(rf"#define CC_ABI_VERSION_{part} (\d+)", header).group(1))
+                    for part in ("MAJOR", "MINOR", "PATCH"))
+    assert cabi.ABI_VERSION == version      # what `crowdcore cabi` prints is what the header declares
 
 
 def test_header_documents_every_exported_call(native):

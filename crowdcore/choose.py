@@ -302,7 +302,7 @@ def _tree_sizes(tree_start, leaf_size):
 
 
 @parallel_kernel
-def _build_trees(a, b, phi, tree_items, tree_start, leaf_size):
+def _build_trees(a, b, phi, cphi, sphi, tree_items, tree_start, leaf_size):
     """Returns (perm, tree_node_start, node_range, node_box, node_tree).
 
     Tree t indexes the records tree_items[tree_start[t]:tree_start[t+1]] (ascending record indices).
@@ -311,13 +311,9 @@ def _build_trees(a, b, phi, tree_items, tree_start, leaf_size):
     middle along the wider q axis, so all leaves of a tree sit at one depth with <= leaf_size records.
     Trees are built in parallel; each writes only its own rows, so the result is thread-count free.
     """
-    n = a.shape[0]
     nt = tree_start.shape[0] - 1
-    qx = np.empty(n)
-    qy = np.empty(n)
-    for r in range(n):
-        qx[r] = b[r] * math.cos(phi[r])
-        qy[r] = b[r] * math.sin(phi[r])
+    qx = b * cphi   # the same products as the forest's rec_t columns
+    qy = b * sphi
     tree_node_start = _tree_sizes(tree_start, leaf_size)
     total = tree_node_start[nt]
     node_range = np.zeros((total, 2), np.int32)
@@ -916,14 +912,15 @@ def _window_nodes(tree_node_start, z):
 
 @kernel
 def _largest_leaf(tree_node_start, node_range):
-    """Most records in one leaf (every tree's last node is a leaf at the common depth)."""
+    """At least the most records in one leaf: halving at the middle keeps every leaf of a tree within
+    ceil(records / leaves) of its root's records (one pass over the trees, not over every leaf)."""
     most = 1
     for k in range(tree_node_start.shape[0] - 1):
-        if tree_node_start[k + 1] > tree_node_start[k]:
-            m = tree_node_start[k + 1] - 1
-            first = tree_node_start[k] + (tree_node_start[k + 1] - tree_node_start[k]) // 2
-            for j in range(first, m + 1):
-                most = max(most, node_range[j, 1] - node_range[j, 0])
+        nodes = tree_node_start[k + 1] - tree_node_start[k]
+        if nodes > 0:
+            root = tree_node_start[k]
+            leaves = (nodes + 1) // 2
+            most = max(most, (node_range[root, 1] - node_range[root, 0] + leaves - 1) // leaves)
     return most
 
 
@@ -1102,7 +1099,7 @@ class _Forest:
 
     def __init__(self, a, b, phi, cphi, sphi, items, tree_start, leaf_size, z):
         perm, self.tree_node_start, self.node_range, self.node_box, self.node_tree = _build_trees(
-            a, b, phi, items, tree_start, leaf_size)
+            a, b, phi, cphi, sphi, items, tree_start, leaf_size)
         self.perm = perm
         # Tree-order rows (qx, qy, a, cos phi, sin phi, b) so leaves read memory sequentially; the exact
         # energies read them too, so they are the index-order values gathered, bit for bit.

@@ -12,7 +12,8 @@ move, account, the choice's own set-up); c_nbr: per agent and neighbour (sense, 
 per agent and speed bucket searched; c_wide: the step from searching one bucket to searching its
 neighbours too. The pruned search prunes most outer records early, so the choice grows much less
 than 2z + 1 and jumps once from z = 0 to z = 1 (measured, choose phase, square-1 with 5,000 agents on
-2 cores: 5.4 ms at z = 0, 7.0 at 1, 8.3 at 2, 9.5 at 3, 10.8 at 5 and 8): a cost linear in 2z + 1
+2 cores: 5.5 ms at z = 0, 7.1 at 1, 8.0 at 2, 8.6 at 3; 13.8 at 5 and 15.6 at 8, where one tree per
+bucket replaces the window trees): a cost linear in 2z + 1
 alone overestimated wide searches and underestimated narrow ones. All coefficients are >= 0, so the
 estimate never falls when n, K or z grow. Four numbers (the model without c_wide) are still accepted.
 
@@ -49,10 +50,15 @@ def estimate_ms(n, k, z, coeffs):
     return _estimate(n, k, z, check_coeffs(coeffs))
 
 
+def _per_agent(k, z, coeffs):
+    """ms per agent at (K, z) on 5 checked coefficients."""
+    _c0, ca, cn, cb, cw = coeffs
+    return ca + cn * k + cb * (2 * z + 1) + (cw if z > 0 else 0.0)
+
+
 def _estimate(n, k, z, coeffs):
     """estimate_ms on 5 checked coefficients: plan() validates once per frame, not once per trial."""
-    c0, ca, cn, cb, cw = coeffs
-    return c0 + n * (ca + cn * k + cb * (2 * z + 1) + (cw if z > 0 else 0.0))
+    return coeffs[0] + n * _per_agent(k, z, coeffs)
 
 
 def plan(n, budget_ms, coeffs, z_max=3, k_min=4, k_max=10):
@@ -80,8 +86,7 @@ def plan(n, budget_ms, coeffs, z_max=3, k_min=4, k_max=10):
 def max_agents(budget_ms, coeffs, k, z):
     """Largest n whose estimate fits budget_ms at (K, z), by the model; 0 if none."""
     coeffs = check_coeffs(coeffs)
-    c0, ca, cn, cb, cw = coeffs
-    per = ca + cn * k + cb * (2 * z + 1) + (cw if z > 0 else 0.0)
+    c0, per = coeffs[0], _per_agent(k, z, coeffs)
     if budget_ms < c0:
         return 0
     if per <= 0:
@@ -150,9 +155,10 @@ def run_governed(budget_ms, coeffs, start=200, add=100, every=1, frames=40, z_ma
     w = lay.world(0, seed)
     w.add_agents(lay.positions[:start], target=lay.target[:start], pref_speed=speeds[:start])
     used = start
-    w._prepare_forests(z_max)  # as a governed world does when its budget is set: no frame pays a build
-    if builtin:
+    if builtin:   # setting the budget builds the search forests of every width the governor may pick
         w.set_params(budget_ms=float(budget_ms), budget_coeffs=list(coeffs), search_width=z_max, neighbours=k_max)
+    else:
+        w._prepare_forests(z_max)  # as a governed world does: no frame pays for a build
     rec = None
     if recorder_path is not None:
         from .recording import Recorder

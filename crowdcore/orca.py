@@ -141,8 +141,8 @@ def _lp2(ln, count, vmax, optx, opty, dir_opt):
     fail == count when feasible, else the first line that could not be satisfied (x, y is then
     the best point for the lines before it).
 
-    The 1-D step (best point on one line) is written out inline: a helper call with an array argument costs atomic
-    reference counting, and it runs once per violated line. Same arithmetic, same order."""
+    The 1-D step (best point on one line) is written out inline: a helper call with an array argument
+    costs atomic reference counting, and it runs once per violated line."""
     if dir_opt:
         rx, ry = optx * vmax, opty * vmax     # opt is a unit direction here
     else:
@@ -156,7 +156,7 @@ def _lp2(ln, count, vmax, optx, opty, dir_opt):
         ptx, pty, dx, dy = ln[no, 0], ln[no, 1], ln[no, 2], ln[no, 3]
         if _det(dx, dy, ptx - rx, pty - ry) <= 0.0:
             continue
-        # best point on line `no` subject to lines 0..no-1 and the speed disc 
+        # best point on line `no` subject to lines 0..no-1 and the speed disc
         dot = ptx * dx + pty * dy
         disc = dot * dot + vmax * vmax - (ptx * ptx + pty * pty)
         if disc < 0.0:

@@ -175,6 +175,7 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
     Each is off when its parameter is 0."""
     n = pos.shape[0]
     ck, sk = np.cos(keep_right), np.sin(keep_right)
+    co, so = np.cos(overtake), np.sin(overtake)
     for i in prange(n):
         ex, ey = nav_dir[i, 0], nav_dir[i, 1]
         if ex * ex + ey * ey == 0.0:
@@ -245,7 +246,6 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
                     passing = False
                     break
         if passing:
-            co, so = np.cos(overtake), np.sin(overtake)
             px, py = co * px - so * py, so * px + co * py
         elif sp > limit:
             f = limit / sp

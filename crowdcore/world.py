@@ -388,7 +388,6 @@ class World:
 
         z, k = p.search_width, p.neighbours
         if p.budget_ms > 0:  # a pure function of n and stored numbers: replays make the same choice
-            self._prepare_forests(z)  # normally done by set_params already: then only lookups
             z, k = plan(n, p.budget_ms, p.budget_coeffs, z_max=z, k_min=min(4, k), k_max=k)
         nbr = np.empty((n, k), np.int32)
         nbr_count = np.empty(n, np.int32)

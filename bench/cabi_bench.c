@@ -1,7 +1,8 @@
 /* Overhead of the crowdcore C ABI, measured from C (driven by bench/cabi_bench.py).
  *   cabi_bench N STEPS COPIES  ->  one JSON line on stdout
  * step overhead = wall time of cc_world_step seen from C minus the time spent inside World.step
- * (cc_step_stats.step_seconds), i.e. the C -> Python crossing, handle lookup and argument checks. */
+ * (cc_step_stats.step_seconds, timed around the call at the C boundary): handle and argument checks,
+ * the busy flag, taking and releasing the interpreter lock, boxing dt. */
 #define _POSIX_C_SOURCE 199309L
 #include <stdio.h>
 #include <stdlib.h>
@@ -39,7 +40,8 @@ int main(int argc, char **argv)
     cc_world w;
     cc_agent_def *defs;
     cc_step_stats st;
-    double *xy, *xy2, *over, *total, *copy, *mcpy, *nop, t0, t_init, spacing = 1.2, extent;
+    double *xy, *xy2, *over, *total, *copy, *mcpy, *nop, *adapter, t0, t_init, spacing = 1.2, extent;
+    cc_world_info info;
     int32_t count;
 
     t0 = now();
@@ -72,10 +74,14 @@ int main(int argc, char **argv)
         over[i] = total[i] - st.step_seconds;
     }
     nop = malloc(sizeof *nop * (size_t)copies);
-    for (i = 0; i < copies; i++) {          /* the bare crossing: a call that does no work */
+    adapter = malloc(sizeof *adapter * (size_t)copies);
+    for (i = 0; i < copies; i++) {
         t0 = now();
-        CHECK(cc_world_is_valid(w));
+        CHECK(cc_world_is_valid(w));        /* a call answered in C */
         nop[i] = now() - t0;
+        t0 = now();
+        CHECK(cc_world_get_info(w, &info)); /* a small call through the Python adapter */
+        adapter[i] = now() - t0;
     }
     CHECK(cc_world_get_positions(w, NULL, 0, &count));
     xy = malloc(sizeof *xy * 2 * (size_t)(count + 1));
@@ -91,9 +97,11 @@ int main(int argc, char **argv)
         mcpy[i] = now() - t0;
     }
     printf("{\"agents\": %d, \"agents_after\": %d, \"steps\": %d, \"init_s\": %.6f, "
-           "\"step_total_ms_median\": %.4f, \"step_overhead_us_median\": %.3f, \"call_overhead_us_median\": %.3f, "
+           "\"step_total_ms_median\": %.4f, \"step_overhead_us_median\": %.3f, \"c_call_us_median\": %.3f, "
+           "\"adapter_call_us_median\": %.3f, "
            "\"positions_copy_us_median\": %.3f, \"memcpy_us_median\": %.3f}\n",
            n, count, steps, t_init, 1e3 * median(total, steps), 1e6 * median(over, steps), 1e6 * median(nop, copies),
+           1e6 * median(adapter, copies),
            1e6 * median(copy, copies), 1e6 * median(mcpy, copies));
     CHECK(cc_world_destroy(w));
     return 0;

@@ -3,10 +3,10 @@
     python bench/cabi_bench.py [--cold] [--out bench/results]
 
 Builds libcrowdcore into OUT/cabi, compiles bench/cabi_bench.c and samples/c_host/host.c, and reports:
-  - step overhead: wall time of cc_world_step seen from C minus the time inside World.step, for 1k and
-    100k agents (median over steps); beside it the same world stepped from Python, whose caller pays
-    a cold-cache return too, and their difference: the ABI layer's own cost (abi_layer_overhead_us);
-  - bare call: cc_world_is_valid in a tight loop (the C -> Python crossing alone);
+  - step overhead: wall time of cc_world_step seen from C minus the time inside World.step (timed at
+    the C boundary), for 1k and 100k agents (median over steps): the ABI's own cost per frame;
+  - calls that do no work: cc_world_is_valid (answered in C) and cc_world_get_info (a trip through
+    the Python adapter, which every call but the step takes);
   - positions copy: cc_world_get_positions into a caller buffer, beside a plain memcpy of the bytes;
   - start to first frame from C (sample host, hall scene): warm (kernel cache filled) and, with --cold,
     cold (empty NUMBA_CACHE_DIR: every kernel compiles).
@@ -44,43 +44,6 @@ def start_to_first_frame(host, env, repeats):
     return times
 
 
-def python_twin(n, steps):
-    """The C bench's world built through the Python API, stepped the way the ABI's step bridge does
-    (perf_counter around World.step), timed from the Python caller. outer - inner is what any
-    interpreted caller pays around a step: mostly refetching cold interpreter code and data after
-    the kernels have churned the caches. The C overhead beyond this is the ABI layer itself."""
-    import numpy as np
-    from time import perf_counter
-    from crowdcore.world import World
-
-    side = 1
-    while side * side < n:
-        side += 1
-    spacing = 1.2
-    extent = side * spacing + 4.0
-    w = World()
-    w.set_params(nav_cell=1.0 if extent > 100 else 0.25)
-    w.set_bounds(-2, -2, extent, extent)
-    w.add_target("east", "rect", (extent - 1.5, -2, extent, extent))
-    i = np.arange(n)
-    w.add_agents(np.stack([(i % side) * spacing, (i // side) * spacing], axis=1).astype(float), target=0)
-
-    def bridge(world, dt):           # the shape of cabi's world_step, minus the C crossing
-        t0 = perf_counter()
-        world.step(dt)
-        return perf_counter() - t0
-
-    bridge(w, 0.1)
-    outer, inner = [], []
-    for _ in range(steps):
-        t = perf_counter()
-        dt_in = bridge(w, 0.1)
-        outer.append(perf_counter() - t)
-        inner.append(dt_in)
-    over = sorted(o - i for o, i in zip(outer, inner))
-    return {"agents": n, "steps": steps, "python_caller_overhead_us_median": round(1e6 * over[len(over) // 2], 3)}
-
-
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", default=os.path.join(ROOT, "bench", "results"))
@@ -101,13 +64,9 @@ def main():
         "machine": {"platform": platform.platform(), "cpus": os.cpu_count(), "python": platform.python_version(),
                     "load_average": os.getloadavg()},
         "overhead": [json.loads(run([bench, "1000", "200", "500"], env=env)),
-                     json.loads(run([bench, "100000", "8", "50"], env=env))],
+                     json.loads(run([bench, "100000", "20", "50"], env=env))],
         "targets": {"step_overhead_us": 2.0, "positions_copy_100k_us": 1000.0},
     }
-    twins = [python_twin(1000, 200), python_twin(100000, 8)]
-    for row, twin in zip(results["overhead"], twins):
-        row["python_caller_overhead_us_median"] = twin["python_caller_overhead_us_median"]
-        row["abi_layer_overhead_us"] = round(row["step_overhead_us_median"] - twin["python_caller_overhead_us_median"], 3)
     run([host, os.path.join(ROOT, "samples", "scenes", "hall.toml"), "1", os.devnull], env=env)   # fill the cache
     results["start_warm"] = start_to_first_frame(host, env, 3)
     if args.cold:

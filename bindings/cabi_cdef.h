@@ -7,6 +7,16 @@
 void cc__set_error(const char *text);
 void cc__init_report(int32_t failed, const char *text);
 
+/* Python -> C: the world table that cc_world_step and cc_world_is_valid read without Python. */
+int32_t cc__slot_open(uint32_t idx, uint32_t gen, void *step);
+void cc__slot_close(uint32_t idx);
+int32_t cc__slot_lock(uint32_t idx);
+void cc__slot_unlock(uint32_t idx);
+void cc__slot_touch(uint32_t idx);
+uint64_t cc__slot_version(uint32_t idx);
+double cc__slot_step_seconds(uint32_t idx);
+void cc__set_step_failed(void *handler);
+
 extern "Python" {
     int32_t cc__py_default_world_def(cc_world_def *);
     int32_t cc__py_default_agent_def(cc_agent_def *);
@@ -16,7 +26,6 @@ extern "Python" {
     int32_t cc__py_world_create_from_snapshot(const void *, int64_t, cc_world *);
     int32_t cc__py_world_create_from_file(const char *, cc_world *);
     int32_t cc__py_world_destroy(cc_world);
-    int32_t cc__py_world_is_valid(cc_world);
     int32_t cc__py_world_add_wall(cc_world, const double *, int32_t, int32_t);
     int32_t cc__py_world_add_obstacle(cc_world, const double *, int32_t);
     int32_t cc__py_world_add_target_circle(cc_world, const char *, double, double, double, int32_t *);
@@ -26,7 +35,6 @@ extern "Python" {
     int32_t cc__py_world_add_agents(cc_world, const cc_agent_def *, int32_t, int32_t *);
     int32_t cc__py_world_remove_agents(cc_world, const int32_t *, int32_t);
     int32_t cc__py_world_set_agent_target(cc_world, int32_t, int32_t);
-    int32_t cc__py_world_step(cc_world, double);
     int32_t cc__py_world_get_step_stats(cc_world, cc_step_stats *);
     int32_t cc__py_world_get_info(cc_world, cc_world_info *);
     int32_t cc__py_world_get_positions(cc_world, double *, int32_t, int32_t *);

@@ -10,9 +10,12 @@
  * environment then breaks at first use. So we start the interpreter ourselves, with home, executable,
  * prefixes and module path baked in at build time, and only then let cffi attach to it.
  */
+#include <math.h>
 #include <pthread.h>
 #include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
+#include <time.h>
 #include "crowdcore.h"
 
 #define CC_EXPORT __attribute__((visibility("default")))
@@ -35,6 +38,158 @@ static void cc__init_report(int32_t failed, const char *text)
 {
     cc__init_failed = failed ? 1 : 0;
     snprintf(cc__init_error, CC__ERR_SIZE, "%s", text ? text : "");
+}
+
+/* ------------------------------------------------------------------ the world table
+ * cc_world_step is the call a host makes every frame, so it does not pass through the Python adapter:
+ * the handle check, the dt check and the busy flag live here, and the call goes straight to the
+ * world's bound step method. Python (crowdcore/cabi.py) decides the table's contents: it opens a slot
+ * when it hands out a handle (or replaces the world behind one) and keeps the bound method alive while
+ * the slot is open; every adapter call on a world takes the same busy flag. Chunks are allocated once
+ * and never moved or freed, so a reader needs no lock to find a slot. */
+#define CC__CHUNK_BITS 10
+#define CC__CHUNK_SIZE (1u << CC__CHUNK_BITS)
+#define CC__CHUNKS 4096u                         /* 4M slots: Python refuses handles beyond */
+
+typedef struct cc__slot {
+    uint32_t gen;             /* generation of the live world; 0 when closed */
+    int32_t busy;             /* 1 while a call uses the world */
+    uint64_t version;         /* bumped by every change; keys the adapter's snapshot cache */
+    PyObject *step;           /* borrowed: the world's bound step method, kept alive by Python */
+    double step_seconds;      /* time inside the last successful step */
+    PyObject *dt;             /* owned: the last dt as a Python float (hosts step with one dt) */
+    PyObject *result;         /* owned: the last step's return value, released at the next step */
+} cc__slot;
+
+static cc__slot *cc__chunks[CC__CHUNKS];
+static PyObject *cc__step_failed;                /* borrowed: Python's step-error handler */
+
+static cc__slot *cc__slot_at(uint32_t idx)
+{
+    cc__slot *chunk;
+    if ((idx >> CC__CHUNK_BITS) >= CC__CHUNKS)
+        return NULL;
+    chunk = __atomic_load_n(&cc__chunks[idx >> CC__CHUNK_BITS], __ATOMIC_ACQUIRE);
+    return chunk ? &chunk[idx & (CC__CHUNK_SIZE - 1)] : NULL;
+}
+
+/* Called from Python (one at a time: the adapter runs under the GIL, which cffi drops only for the call). */
+static int32_t cc__slot_open(uint32_t idx, uint32_t gen, void *step)
+{
+    cc__slot *s;
+    uint32_t c = idx >> CC__CHUNK_BITS;
+    if (c >= CC__CHUNKS || gen == 0 || step == NULL)
+        return -1;
+    if (cc__chunks[c] == NULL) {
+        cc__slot *chunk = calloc(CC__CHUNK_SIZE, sizeof *chunk);
+        if (chunk == NULL)
+            return -1;
+        __atomic_store_n(&cc__chunks[c], chunk, __ATOMIC_RELEASE);
+    }
+    s = cc__slot_at(idx);
+    s->step = (PyObject *)step;
+    s->step_seconds = 0.0;
+    __atomic_add_fetch(&s->version, 1, __ATOMIC_RELAXED);
+    __atomic_store_n(&s->gen, gen, __ATOMIC_RELEASE);
+    return 0;
+}
+
+static void cc__slot_close(uint32_t idx)
+{
+    cc__slot *s = cc__slot_at(idx);
+    if (s) {
+        PyGILState_STATE g;
+        __atomic_store_n(&s->gen, 0, __ATOMIC_RELEASE);
+        s->step = NULL;
+        g = PyGILState_Ensure();      /* cffi calls C with the lock released */
+        Py_CLEAR(s->result);
+        PyGILState_Release(g);
+    }
+}
+
+static int32_t cc__slot_lock(uint32_t idx)      /* 1 if taken, 0 if the world is busy */
+{
+    int32_t free_ = 0;
+    cc__slot *s = cc__slot_at(idx);
+    return s && __atomic_compare_exchange_n(&s->busy, &free_, 1, 0, __ATOMIC_ACQUIRE, __ATOMIC_RELAXED);
+}
+
+static void cc__slot_unlock(uint32_t idx)
+{
+    cc__slot *s = cc__slot_at(idx);
+    if (s)
+        __atomic_store_n(&s->busy, 0, __ATOMIC_RELEASE);
+}
+
+static void cc__slot_touch(uint32_t idx)
+{
+    cc__slot *s = cc__slot_at(idx);
+    if (s)
+        __atomic_add_fetch(&s->version, 1, __ATOMIC_RELAXED);
+}
+
+static uint64_t cc__slot_version(uint32_t idx)
+{
+    cc__slot *s = cc__slot_at(idx);
+    return s ? __atomic_load_n(&s->version, __ATOMIC_RELAXED) : 0;
+}
+
+static double cc__slot_step_seconds(uint32_t idx)
+{
+    cc__slot *s = cc__slot_at(idx);
+    return s ? s->step_seconds : 0.0;
+}
+
+static void cc__set_step_failed(void *handler)
+{
+    cc__step_failed = (PyObject *)handler;
+}
+
+/* The live slot of handle w, or NULL. */
+static cc__slot *cc__live(cc_world w)
+{
+    uint32_t idx = (uint32_t)w, gen = (uint32_t)(w >> 32);
+    cc__slot *s = idx ? cc__slot_at(idx) : NULL;
+    return s && gen && __atomic_load_n(&s->gen, __ATOMIC_ACQUIRE) == gen ? s : NULL;
+}
+
+static int32_t cc__bad_handle(cc_world w)
+{
+    snprintf(cc__err, CC__ERR_SIZE, "world handle %#llx: not a live world (0, destroyed, or never created)",
+             (unsigned long long)w);
+    return CC_ERR_HANDLE;
+}
+
+static double cc__now(void)
+{
+    struct timespec t;
+    clock_gettime(CLOCK_MONOTONIC, &t);
+    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
+}
+
+/* With the GIL and a Python exception set: its status code and text, via Python's handler. */
+static int32_t cc__step_error(void)
+{
+    PyObject *type, *value, *tb, *code;
+    long status = CC_ERR_INTERNAL;
+    PyErr_Fetch(&type, &value, &tb);
+    PyErr_NormalizeException(&type, &value, &tb);
+    if (value && tb)
+        PyException_SetTraceback(value, tb);
+    code = cc__step_failed && value ? PyObject_CallOneArg(cc__step_failed, value) : NULL;
+    if (code) {
+        status = PyLong_AsLong(code);
+        Py_DECREF(code);
+    }
+    if (code == NULL || status <= CC_OK || PyErr_Occurred()) {
+        PyErr_Clear();
+        status = CC_ERR_INTERNAL;
+        snprintf(cc__err, CC__ERR_SIZE, "internal error in the step (its report failed too)");
+    }
+    Py_XDECREF(type);
+    Py_XDECREF(value);
+    Py_XDECREF(tb);
+    return (int32_t)status;
 }
 
 static int cc__start_interpreter(void)
@@ -196,7 +351,7 @@ CC_EXPORT int32_t cc_world_destroy(cc_world w)
 { CC_ENTER(); return cc__py_world_destroy(w); }
 
 CC_EXPORT int32_t cc_world_is_valid(cc_world w)
-{ CC_ENTER(); return cc__py_world_is_valid(w); }
+{ CC_ENTER(); return cc__live(w) ? CC_OK : cc__bad_handle(w); }
 
 CC_EXPORT int32_t cc_world_add_wall(cc_world w, const double *xy, int32_t point_count, int32_t closed)
 { CC_ENTER(); return cc__py_world_add_wall(w, xy, point_count, closed); }
@@ -227,8 +382,57 @@ CC_EXPORT int32_t cc_world_set_params(cc_world w, const char *toml_text)
 CC_EXPORT int32_t cc_world_set_agent_target(cc_world w, int32_t id, int32_t target)
 { CC_ENTER(); return cc__py_world_set_agent_target(w, id, target); }
 
+/* The frame call, without the Python adapter (see the world table above). dt above the world's
+ * max_dt is refused by World.step itself, before it changes anything. */
 CC_EXPORT int32_t cc_world_step(cc_world w, double dt)
-{ CC_ENTER(); return cc__py_world_step(w, dt); }
+{
+    cc__slot *s;
+    PyGILState_STATE g;
+    PyObject *arg, *r;
+    double t0;
+    int32_t status = CC_OK;
+    CC_ENTER();
+    if ((s = cc__live(w)) == NULL)
+        return cc__bad_handle(w);
+    if (!isfinite(dt)) {
+        snprintf(cc__err, CC__ERR_SIZE, "dt: must be finite, got %g", dt);
+        return CC_ERR_NOT_FINITE;
+    }
+    if (!(dt > 0.0)) {
+        snprintf(cc__err, CC__ERR_SIZE, "dt: must be > 0 seconds, got %g", dt);
+        return CC_ERR_RANGE;
+    }
+    if (!cc__slot_lock((uint32_t)w)) {
+        snprintf(cc__err, CC__ERR_SIZE, "world %#llx: in use by another thread", (unsigned long long)w);
+        return CC_ERR_BUSY;
+    }
+    if (cc__live(w) != s) {                 /* destroyed between the check and the lock */
+        cc__slot_unlock((uint32_t)w);
+        return cc__bad_handle(w);
+    }
+    g = PyGILState_Ensure();
+    /* After a big step every line is cold, so the path back to the host touches as few as it can:
+     * dt's float object is reused while dt stays the same, and the step's result (the stats dict) is
+     * released at the next call, when its line is likely warm again. */
+    Py_CLEAR(s->result);
+    if (s->dt == NULL || PyFloat_AS_DOUBLE(s->dt) != dt) {
+        Py_XDECREF(s->dt);
+        s->dt = PyFloat_FromDouble(dt);
+    }
+    arg = s->dt;
+    t0 = cc__now();
+    r = arg ? PyObject_CallOneArg(s->step, arg) : NULL;
+    if (r) {
+        s->step_seconds = cc__now() - t0;
+        __atomic_add_fetch(&s->version, 1, __ATOMIC_RELAXED);
+        s->result = r;
+    } else {
+        status = cc__step_error();
+    }
+    PyGILState_Release(g);
+    cc__slot_unlock((uint32_t)w);
+    return status;
+}
 
 CC_EXPORT int32_t cc_world_get_step_stats(cc_world w, cc_step_stats *out)
 { CC_ENTER(); return cc__py_world_get_step_stats(w, out); }

@@ -13,7 +13,8 @@
  *   - Bulk data goes into caller-owned buffers: capacity in, count out; a NULL buffer asks for the count.
  *     The library keeps no pointer into caller memory after a call returns.
  *   - Threading: any thread may call. A world must be used by one thread at a time; a concurrent call on
- *     the same world is refused with CC_ERR_BUSY. Different worlds may be used from different threads:
+ *     the same world is refused with CC_ERR_BUSY (tests/c/test_threads.c). Different worlds may be used
+ *     from different threads:
  *     calls serialise on the embedded Python interpreter lock, except inside compiled kernels, which
  *     release it, so two worlds stepping on two threads overlap only partly.
  *   - The first call that needs the runtime starts an embedded Python interpreter configured from paths
@@ -32,7 +33,7 @@ extern "C" {
 /* @cdef-begin (this block is also the cffi declaration source: constants, typedefs and structs only) */
 #define CC_ABI_VERSION_MAJOR 1
 #define CC_ABI_VERSION_MINOR 2
-#define CC_ABI_VERSION_PATCH 0
+#define CC_ABI_VERSION_PATCH 1
 
 /* Status codes. */
 #define CC_OK 0
@@ -106,7 +107,7 @@ typedef struct cc_world_info {
 /* Statistics of the last step (all zero before the first step). */
 typedef struct cc_step_stats {
     double min_gap;            /* smallest surface gap between neighbours (m); +inf with no agents */
-    double step_seconds;       /* wall time spent inside the simulation step itself (s) */
+    double step_seconds;       /* wall time inside the simulation step itself, timed around World.step (s) */
     int32_t overlaps;          /* overlapping neighbour pairs */
     int32_t blocked_moves;     /* moves cancelled at walls */
     int32_t arrived;           /* agents that arrived */
@@ -151,7 +152,7 @@ CC_API int32_t cc_world_create_from_scenario_text(const char *toml_text, cc_worl
 CC_API int32_t cc_world_create_from_snapshot(const void *data, int64_t size, cc_world *out);     /* World from snapshot bytes (copied; the buffer may be freed on return). */
 CC_API int32_t cc_world_create_from_file(const char *path, cc_world *out);                       /* World from a snapshot file written by cc_world_save_file. */
 CC_API int32_t cc_world_destroy(cc_world w);                                                     /* Free the world; w and every copy of it become invalid (CC_ERR_HANDLE). */
-CC_API int32_t cc_world_is_valid(cc_world w);                                                    /* CC_OK if w names a live world, else CC_ERR_HANDLE. */
+CC_API int32_t cc_world_is_valid(cc_world w);                                                    /* CC_OK if w names a live world, else CC_ERR_HANDLE (pure C after start-up). */
 
 /* --- scene edits (each rebuilds navigation fields: milliseconds, not per frame) --- */
 CC_API int32_t cc_world_add_wall(cc_world w, const double *xy, int32_t point_count, int32_t closed); /* Wall polyline of point_count (x,y) pairs (>= 2, >= 3 if closed); closed != 0 joins last to first. */
@@ -167,7 +168,7 @@ CC_API int32_t cc_world_remove_agents(cc_world w, const int32_t *ids, int32_t co
 CC_API int32_t cc_world_set_agent_target(cc_world w, int32_t id, int32_t target);                /* Send agent `id` to target index `target` (-1 = none). */
 
 /* --- stepping --- */
-CC_API int32_t cc_world_step(cc_world w, double dt);                                             /* Advance one frame of dt seconds, 0 < dt <= max_dt; invalidates earlier query results. */
+CC_API int32_t cc_world_step(cc_world w, double dt);                                             /* Advance one frame of dt seconds, 0 < dt <= max_dt; invalidates earlier query results. Checks run in C, then World.step directly. */
 CC_API int32_t cc_world_get_step_stats(cc_world w, cc_step_stats *out);                          /* Statistics of the last step. */
 CC_API int32_t cc_world_get_info(cc_world w, cc_world_info *out);                                /* Frame number, time and counts. */
 

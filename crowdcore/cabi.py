@@ -15,8 +15,6 @@ Bulk data moves with one numpy copy over the caller's memory: no Python per agen
 import math
 import os
 import sys
-import threading
-from time import perf_counter
 
 LIBRARY_NAME = "crowdcore"
 
@@ -112,7 +110,7 @@ def describe(out_dir=None):
     ])
 
 
-ABI_VERSION = (1, 2, 0)
+ABI_VERSION = (1, 2, 1)
 
 
 # ====================================================================== adapter
@@ -125,16 +123,26 @@ class _Fail(Exception):
 
 
 class _Slot:
-    __slots__ = ("world", "gen", "lock", "version", "snap", "step_seconds", "recorder")
+    __slots__ = ("world", "gen", "idx", "step", "snap", "recorder")
 
-    def __init__(self):
-        self.world, self.gen, self.lock = None, 0, threading.Lock()
-        self.version, self.snap, self.step_seconds = 0, None, 0.0
-        self.recorder = None
+    def __init__(self, idx):
+        self.world, self.gen, self.idx, self.step = None, 0, idx, None
+        self.snap, self.recorder = None, None
 
 
-_slots = [_Slot()]      # slot 0 is never handed out
+_slots = [_Slot(0)]     # slot 0 is never handed out
 _free = []
+_MAX_SLOTS = 1 << 22    # the C world table's size
+_lib = _ffi = None      # set by _bind
+_keep = []              # Python objects the C side points to
+
+
+def _open(s, world):
+    """Put world behind slot s and publish its bound step method to the C world table, which
+    cc_world_step calls without this adapter. s.step keeps the method alive while the slot is open."""
+    s.world, s.step, s.snap = world, world.step, None
+    if _lib.cc__slot_open(s.idx, s.gen, _ffi.cast("void *", id(s.step))) != 0:
+        raise _Fail(ERR_INTERNAL, "the C world table refused a slot (out of memory?)")
 
 
 def _new_handle(world):
@@ -142,12 +150,12 @@ def _new_handle(world):
         idx = _free.pop()
     else:
         idx = len(_slots)
-        if idx > 0xFFFFFFFF:
-            raise _Fail(ERR_RANGE, "too many live worlds")
-        _slots.append(_Slot())
+        if idx >= _MAX_SLOTS:
+            raise _Fail(ERR_RANGE, f"too many live worlds (at most {_MAX_SLOTS - 1})")
+        _slots.append(_Slot(idx))
     s = _slots[idx]
     s.gen = s.gen % 0xFFFFFFFF + 1          # 1..2^32-1, never 0
-    s.world, s.version, s.snap, s.step_seconds = world, 0, None, 0.0
+    _open(s, world)
     return (s.gen << 32) | idx
 
 
@@ -166,13 +174,16 @@ def _bind(ffi, lib):
 
     import numpy as np
 
-    from .errors import CrowdError, ScenarioError, SnapshotError
+    from .errors import CrowdError, ScenarioError, SnapshotError, StepError
     from .params import Params, WEIGHT_NAMES
     from .scenario import build_world, parse_scenario
     from .world import World
 
+    global _lib, _ffi
+    _lib, _ffi = lib, ffi
     NULL = ffi.NULL
     set_error = lib.cc__set_error
+    lock, unlock, touch = lib.cc__slot_lock, lib.cc__slot_unlock, lib.cc__slot_touch
     agent_size = ffi.sizeof("cc_agent_def")
     f8, i4 = ("x", "y", "vx", "vy", "pref_speed", "radius"), ("target", "group", "internal_check", "reserved")
     agent_dtype = np.dtype({"names": f8 + i4, "formats": ["<f8"] * len(f8) + ["<i4"] * len(i4),
@@ -206,15 +217,14 @@ def _bind(ffi, lib):
                 def entry(h, *args):
                     try:
                         s = _slot(h)
-                        if not s.lock.acquire(False):
+                        if not lock(s.idx):
                             raise _Fail(ERR_BUSY, f"world {h:#x}: in use by another thread")
                         try:
                             fn(s, *args)
                             if mutates:
-                                s.version += 1
-                                s.snap = None
+                                touch(s.idx)
                         finally:
-                            s.lock.release()
+                            unlock(s.idx)
                         return OK
                     except BaseException as e:  # noqa: BLE001 - every failure becomes a status
                         return report(e)
@@ -394,21 +404,18 @@ def _bind(ffi, lib):
     @export("world_destroy", world=False)
     def world_destroy(h):
         s = _slot(h)
-        if not s.lock.acquire(False):
+        if not lock(s.idx):
             raise _Fail(ERR_BUSY, f"world {h:#x}: in use by another thread")
         try:
             if s.recorder is not None:
                 s.recorder, rec = None, s.recorder
                 rec.close()
-            s.world, s.snap = None, None
+            lib.cc__slot_close(s.idx)          # C first: no step may start on a world being dropped
+            s.world, s.step, s.snap = None, None, None
             s.gen = s.gen % 0xFFFFFFFF + 1     # every old copy of the handle is now stale
-            _free.append(h & 0xFFFFFFFF)
+            _free.append(s.idx)
         finally:
-            s.lock.release()
-
-    @export("world_is_valid", world=False)
-    def world_is_valid(h):
-        _slot(h)
+            unlock(s.idx)
 
     # -------------------------------------------------------------- scene edits
     def scene_edit(call, *args):
@@ -540,41 +547,23 @@ def _bind(ffi, lib):
         w.set_target(arr, target)
 
     # -------------------------------------------------------------- step
-    # The step is written out by hand, without the generic wrapper: right after a simulation step the
-    # interpreter runs with cold caches, so every bytecode between C and World.step shows as overhead.
-    inf = math.inf
+    # cc_world_step runs in C (bindings/cabi_source.c) and calls World.step directly; this turns
+    # an exception out of that call into a status code and this thread's error text.
+    def step_failed(e):
+        if isinstance(e, StepError):     # dt above max_dt: refused before anything changed
+            set_error(str(e).encode("utf-8", "replace")[:4000])
+            return ERR_RANGE
+        return report(e)
 
-    def world_step(h, dt):
-        try:
-            s = _slot(h)
-            lock = s.lock
-            if not lock.acquire(False):
-                raise _Fail(ERR_BUSY, f"world {h:#x}: in use by another thread")
-            try:
-                w = s.world
-                if not 0.0 < dt <= w.params.max_dt:
-                    if dt != dt or dt == inf or dt == -inf:
-                        raise _Fail(ERR_NOT_FINITE, f"dt: must be finite, got {dt!r}")
-                    raise _Fail(ERR_RANGE, f"dt: must lie in (0, {w.params.max_dt}] seconds, got {dt!r}")
-                s.version += 1   # bookkeeping first: after a big step the caches are cold, and a refused
-                s.snap = None    # or failed step changes nothing that these two describe
-                t0 = perf_counter()
-                w.step(dt)
-                s.step_seconds = perf_counter() - t0
-            finally:
-                lock.release()
-            return OK
-        except BaseException as e:  # noqa: BLE001
-            return report(e)
-
-    ffi.def_extern(name="cc__py_world_step", error=ERR_INTERNAL)(world_step)
+    _keep.append(step_failed)            # the C side holds a borrowed pointer
+    lib.cc__set_step_failed(ffi.cast("void *", id(step_failed)))
 
     @export("world_get_step_stats")
     def world_get_step_stats(s, out):
         need(out, "out")
         st = s.world.stats
         out.min_gap = st.get("min_gap", 0.0)
-        out.step_seconds = s.step_seconds
+        out.step_seconds = lib.cc__slot_step_seconds(s.idx)
         for k in ("overlaps", "blocked_moves", "arrived", "fallbacks", "guarded", "search_width", "neighbours"):
             setattr(out, k, st.get(k, 0))
         out.reserved = 0
@@ -623,8 +612,9 @@ def _bind(ffi, lib):
         need(size, "size")
         if cap < 0:
             raise _Fail(ERR_RANGE, f"capacity: must be >= 0, got {cap}")
-        if s.snap is None or s.snap[0] != s.version:     # a size query then a copy encode once
-            s.snap = (s.version, s.world.snapshot())
+        version = lib.cc__slot_version(s.idx)
+        if s.snap is None or s.snap[0] != version:       # a size query then a copy encode once
+            s.snap = (version, s.world.snapshot())
         data = s.snap[1]
         size[0] = len(data)
         if buf == NULL:
@@ -640,7 +630,7 @@ def _bind(ffi, lib):
     @export("world_load_snapshot", mutates=True)
     def world_load_snapshot(s, data, size):
         not_recording(s)
-        s.world = World.from_snapshot(snapshot_bytes(data, size))   # built completely before it replaces
+        _open(s, World.from_snapshot(snapshot_bytes(data, size)))   # built completely before it replaces
 
     @export("world_save_file")
     def world_save_file(s, path):
@@ -651,7 +641,7 @@ def _bind(ffi, lib):
         not_recording(s)
         p = text_arg(path, "path")
         readable_file(p, "snapshot")
-        s.world = World.load(p)
+        _open(s, World.load(p))
 
     @export("world_record_start")
     def world_record_start(s, path):

@@ -120,3 +120,13 @@ def test_recording_and_replay_from_c(native, tmp_path):
     from crowdcore.recording import replay
     report = replay(rec)
     assert report.identical and report.frames_checked == 50
+
+
+def test_busy_world_and_worlds_on_two_threads_from_c(native, tmp_path):
+    exe = compile_c(native, os.path.join(ROOT, "tests", "c", "test_threads.c"), str(tmp_path / "threads"), "-pthread")
+    r = subprocess.run([exe], capture_output=True, text=True, env=host_env(), timeout=600)
+    assert r.returncode == 0 and r.stdout.rstrip().endswith("threads: 0 failures"), r.stdout + r.stderr
+    for case in ("a second thread got CC_ERR_BUSY while the world stepped",
+                 "the busy world made exactly the steps that were accepted",
+                 "a world stepped beside a busy one equals the same world stepped alone"):
+        assert f"ok   {case}" in r.stdout, case

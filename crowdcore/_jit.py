@@ -10,6 +10,7 @@ os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
 os.environ.setdefault("NUMBA_THREADING_LAYER", "omp")
 
 import numba  # noqa: E402
+import numba.extending  # noqa: E402
 
 # `kernel` for serial kernels and per-agent helpers, `parallel_kernel` for prange loops over agents.
 kernel = numba.njit(cache=True, nogil=True, fastmath=False, error_model="numpy")
@@ -23,3 +24,29 @@ def set_threads(n: int) -> None:
 
 def max_threads() -> int:
     return int(numba.config.NUMBA_NUM_THREADS)
+
+
+@numba.extending.intrinsic
+def prefetch(typingctx, arr, row, byte_offset):
+    """Hint the CPU to fetch the cache line at byte_offset from the start of arr[row] (any array of
+    one or more dimensions). A hint only: no effect on results, and no fault for any address."""
+    from llvmlite import ir
+    from numba.core import cgutils, types
+
+    if not (isinstance(arr, types.Array) and arr.ndim >= 1 and isinstance(row, types.Integer)
+            and isinstance(byte_offset, types.Integer)):
+        return None
+
+    def codegen(context, builder, sig, args):
+        ary = context.make_array(sig.args[0])(context, builder, args[0])
+        stride = builder.extract_value(ary.strides, 0)
+        offset = builder.add(builder.mul(context.cast(builder, args[1], sig.args[1], types.intp), stride),
+                             context.cast(builder, args[2], sig.args[2], types.intp))
+        ptr = builder.gep(builder.bitcast(ary.data, ir.IntType(8).as_pointer()), [offset])
+        i32 = ir.IntType(32)
+        fnty = ir.FunctionType(ir.VoidType(), [ptr.type, i32, i32, i32])
+        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.prefetch.p0")
+        builder.call(fn, [ptr, i32(0), i32(3), i32(1)])   # read, keep in all cache levels, data
+        return context.get_dummy_value()
+
+    return types.void(arr, row, byte_offset), codegen

@@ -63,6 +63,7 @@ _MARGIN_REL = 1e-9      # prune only when a bound beats the best by this fractio
 _FEAS_REL = 1e-9        # strict-mode feasibility tests are relaxed by this fraction of each line's scale
 _BIG = 1.7976931348623157e308  # largest float64: energy bounds are capped here, inf means infeasible
 _BLOCK = 64             # agents per parallel work item (scratch buffers are shared within a block)
+_CHUNKS_PER_THREAD = 8  # parts the agent blocks are dealt out in, per thread (see RecordIndex.run)
 _JOINT_COS = math.cos(0.1)  # joint bound only where the direction is this far off the quadratic centre
 _HESS_DIR = 1.25        # |Hessian of cos(angle(q) - beta)| <= (2/sqrt(3))/|q|^2 ~ 1.155/|q|^2; rounded up
 _NODE_COLS = 13         # qx_lo qx_hi qy_lo qy_hi a_lo a_hi phi_lo phi_hi cos/sin(phi_lo) cos/sin(phi_hi) b_lo
@@ -1245,8 +1246,15 @@ class RecordIndex:
         else:
             raise StepError("kernel_fn must be choose_full or choose_pruned")
         if n:
-            kernel_fn(*lead, weights, int(z), bool(strict), v_now, v_pref, nav_dir, v_safe, v_group, max_speed,
-                      lines, line_count, out_vel, out_rec)
+            # Agents come in speed-bucket order and a search's cost varies with speed, so the default
+            # split of the blocks into one contiguous part per thread leaves one thread waiting.
+            # Handing them out in about 8 chunks per thread balances them (8% at 10,000 agents on 2).
+            chunk = 0
+            if kernel_fn is choose_pruned:
+                chunk = max(1, -(-n // _BLOCK) // (_CHUNKS_PER_THREAD * numba.get_num_threads()))
+            with numba.parallel_chunksize(chunk):
+                kernel_fn(*lead, weights, int(z), bool(strict), v_now, v_pref, nav_dir, v_safe, v_group,
+                          max_speed, lines, line_count, out_vel, out_rec)
 
 
 def _check_shapes(weights, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, out_vel,

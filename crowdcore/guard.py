@@ -17,7 +17,7 @@ only start-of-step positions, so neither row order nor thread count changes the 
 import numpy as np
 from numba import prange
 
-from ._jit import kernel, parallel_kernel
+from ._jit import inline_kernel, parallel_kernel
 from .orca import _det, solve_lines, wall_line
 from .spatial import _cell_of, _insert_sorted, any_wall_near, walls_near
 
@@ -25,7 +25,7 @@ CAPACITY = 48   # contact lines per agent; more neighbours than this cannot fit 
 _BLOCK = 64     # agents per parallel work item (scratch buffers shared within a block)
 
 
-@kernel
+@inline_kernel
 def _allowed(ln, m, vmax, vx, vy):
     """True when solve_lines(ln, m, ., vmax, vx, vy) would return (vx, vy) unchanged: the same
     tests, in the same arithmetic, as the first pass of its linear program."""
@@ -97,7 +97,12 @@ def contact_guard_phase(pos, ids, radius, max_speed, vel_in, nbr, nbr_count, sen
                     j = nbr[i, s]
                     ddx, ddy = pos[j, 0] - px, pos[j, 1] - py
                     d2 = ddx * ddx + ddy * ddy
-                    if np.sqrt(d2) - r - radius[j] < step_reach and count < cap:
+                    dd = np.sqrt(d2)
+                    if dd - r - rmax_all >= step_reach:
+                        # the list is sorted by distance and rounding is monotone, so no later
+                        # neighbour passes the test below either: skip their square roots
+                        break
+                    if dd - r - radius[j] < step_reach and count < cap:
                         best_d[count] = d2
                         best_j[count] = j
                         count += 1

@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-from ._jit import kernel
+from ._jit import inline_kernel, kernel
 from .errors import ScenarioError
 
 TARGET_KINDS = ("circle", "rect")
@@ -474,7 +474,7 @@ def _bilinear_setup(ox, oy, h, nx, ny, x, y):
     return i0, i1, j0, j1, fx, fy
 
 
-@kernel
+@inline_kernel
 def sample_dir(dirs, t, ox, oy, h, nx, ny, x, y):
     """Bilinear direction of target t at (x, y), renormalised; (0, 0) when unknown or ~zero."""
     if not (np.isfinite(x) and np.isfinite(y)) or t < 0 or t >= dirs.shape[0]:
@@ -492,7 +492,7 @@ def sample_dir(dirs, t, ox, oy, h, nx, ny, x, y):
     return dx / nrm, dy / nrm
 
 
-@kernel
+@inline_kernel
 def sample_dist(dists, t, ox, oy, h, nx, ny, x, y):
     """Bilinear distance of target t at (x, y) over the finite corners only; inf if none is finite.
 

@@ -7,15 +7,15 @@ import math
 import numpy as np
 from numba import prange
 
-from ._jit import kernel, parallel_kernel
+from ._jit import inline_kernel, kernel, parallel_kernel
 from .navfield import sample_dir, sample_dist
-from .spatial import walls_near, segments_cross
+from .spatial import any_wall_near, walls_near, segments_cross
 
 TARGET_CIRCLE = 0
 TARGET_RECT = 1
 
 
-@kernel
+@inline_kernel
 def inside_target(kind, shape, x, y):
     if kind == TARGET_CIRCLE:
         dx, dy = x - shape[0], y - shape[1]
@@ -70,6 +70,9 @@ def group_pull_phase(pos, group, group_centre, pref_vel, pref_speed, v_group):
         v_group[i, 1] = vy
 
 
+_BLOCK = 64  # agents per parallel work item (scratch buffers are allocated once per block)
+
+
 @parallel_kernel
 def move_phase(pos, new_vel, radius, target, target_kind, target_shape, dt,
                walls, wall_start, wall_items, wox, woy, wc, wnx, wny,
@@ -77,30 +80,36 @@ def move_phase(pos, new_vel, radius, target, target_kind, target_shape, dt,
     """Integrate positions; a move that would cross a wall is cancelled (the agent waits).
 
     With ORCA in strict mode no move crosses a wall (the wall half-planes forbid it); the guard
-    makes the no-crossing rule hold for every model and setting."""
+    makes the no-crossing rule hold for every model and setting. The candidate buffer is allocated
+    once per block and walls_near runs only near a wall: a per-agent allocation and the call's
+    array reference counting were half of this phase."""
     n = pos.shape[0]
-    for i in prange(n):
-        x0, y0 = pos[i, 0], pos[i, 1]
-        vx, vy = new_vel[i, 0], new_vel[i, 1]
-        x1, y1 = x0 + vx * dt, y0 + vy * dt
+    nblocks = (n + _BLOCK - 1) // _BLOCK
+    for b in prange(nblocks):
         cand = np.empty(64, np.int32)
-        reach = math.sqrt(vx * vx + vy * vy) * dt + 1e-9
-        count = walls_near(x0, y0, reach, walls, wall_start, wall_items, wox, woy, wc, wnx, wny, cand)
-        crossed = False
-        for c in range(count):
-            s = cand[c]
-            if segments_cross(x0, y0, x1, y1, walls[s, 0], walls[s, 1], walls[s, 2], walls[s, 3]):
-                crossed = True
-                break
-        if crossed:
-            x1, y1, vx, vy = x0, y0, 0.0, 0.0
-        blocked_moves[i] = crossed
-        out_pos[i, 0] = x1
-        out_pos[i, 1] = y1
-        out_vel[i, 0] = vx
-        out_vel[i, 1] = vy
-        t = target[i]
-        arrived[i] = 0 <= t < target_kind.shape[0] and inside_target(target_kind[t], target_shape[t], x1, y1)
+        for i in range(b * _BLOCK, min((b + 1) * _BLOCK, n)):
+            x0, y0 = pos[i, 0], pos[i, 1]
+            vx, vy = new_vel[i, 0], new_vel[i, 1]
+            x1, y1 = x0 + vx * dt, y0 + vy * dt
+            reach = math.sqrt(vx * vx + vy * vy) * dt + 1e-9
+            crossed = False
+            # no listed segment in reach means walls_near would return none
+            if any_wall_near(x0, y0, reach, wall_start, wox, woy, wc, wnx, wny):
+                count = walls_near(x0, y0, reach, walls, wall_start, wall_items, wox, woy, wc, wnx, wny, cand)
+                for c in range(count):
+                    s = cand[c]
+                    if segments_cross(x0, y0, x1, y1, walls[s, 0], walls[s, 1], walls[s, 2], walls[s, 3]):
+                        crossed = True
+                        break
+            if crossed:
+                x1, y1, vx, vy = x0, y0, 0.0, 0.0
+            blocked_moves[i] = crossed
+            out_pos[i, 0] = x1
+            out_pos[i, 1] = y1
+            out_vel[i, 0] = vx
+            out_vel[i, 1] = vy
+            t = target[i]
+            arrived[i] = 0 <= t < target_kind.shape[0] and inside_target(target_kind[t], target_shape[t], x1, y1)
 
 
 @parallel_kernel
@@ -122,6 +131,29 @@ def separation_phase(pos, radius, ids, nbr, nbr_count, overlap_tol, min_gap, ove
                 c += 1
         min_gap[i] = g
         overlaps[i] = c
+
+
+@kernel
+def frame_tally(min_gap, overlaps, blocked, rec, guarded, arrived):
+    """The step's counters in one pass (separate numpy reductions cost more than the pass):
+    (smallest min_gap, inf when empty and NaN if any is NaN, as numpy's min; overlap pairs; blocked
+    moves; fallbacks rec < 0; guarded; arrived)."""
+    g = np.inf
+    o = 0
+    b = 0
+    f = 0
+    gu = 0
+    a = 0
+    for i in range(min_gap.shape[0]):
+        x = min_gap[i]
+        if x < g or x != x:
+            g = x
+        o += overlaps[i]
+        b += blocked[i]
+        f += rec[i] < 0
+        gu += guarded[i]
+        a += arrived[i]
+    return g, o, b, f, gu, a
 
 
 @kernel
@@ -189,27 +221,26 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
             dx, dy = pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]
             d = math.sqrt(dx * dx + dy * dy)  # not hypot: ~7x slower, and no overflow to guard against
             ahead = dx * ex + dy * ey
-            if d == 0.0 or ahead <= 0.0:
-                continue
+            # Every test below runs for every neighbour, combined with & and selects rather than `continue`:
+            # the outcomes are random per neighbour (half are behind), and mispredicted branches cost more
+            # than the arithmetic (9% of this phase). Each value is computed by the same expression.
+            front = not ((d == 0.0) | (ahead <= 0.0))
             along = vel[j, 0] * ex + vel[j, 1] * ey
-            if along < 0.0:
-                # anyone ahead walking towards us, not just in the headway cone, unless bound for our own
-                # target: people converging on one door do not meet head-on, and turning right there
-                # steered them off the opening (bottleneck flow fell, 0.8 m doors jammed)
-                if target[j] != target[i]:
-                    oncoming = True
-                continue
-            if ahead < cos_cone * d:
-                continue
+            back = along < 0.0
+            # anyone ahead walking towards us, not just in the headway cone, unless bound for our own
+            # target: people converging on one door do not meet head-on, and turning right there
+            # steered them off the opening (bottleneck flow fell, 0.8 m doors jammed)
+            oncoming |= front & back & (target[j] != target[i])
             vj2 = vel[j, 0] * vel[j, 0] + vel[j, 1] * vel[j, 1]
-            if vj2 <= 0.01 or along * along < 0.25 * vj2:
-                continue          # standing, or crossing our path: avoidance handles it
-            if headway_time > 0.0:
-                lj = max(0.0, d - radius[i] - radius[j]) / headway_time
-                if lj < limit:
-                    limit = lj
-                    lead_along = along
-                    lead_ahead = ahead
+            # a leader: ahead in the cone, walking our way; not standing, nor crossing our path (avoidance
+            # handles those)
+            lead = front & (not back) & (not (ahead < cos_cone * d)) \
+                & (not ((vj2 <= 0.01) | (along * along < 0.25 * vj2)))
+            lj = max(0.0, d - radius[i] - radius[j]) / headway_time
+            better = lead & (headway_time > 0.0) & (lj < limit)
+            limit = lj if better else limit
+            lead_along = along if better else lead_along
+            lead_ahead = ahead if better else lead_ahead
         stuck = False
         if jostle != 0.0 and vel[i, 0] * vel[i, 0] + vel[i, 1] * vel[i, 1] < 0.04 * (
                 pref_vel[i, 0] * pref_vel[i, 0] + pref_vel[i, 1] * pref_vel[i, 1]):
@@ -242,9 +273,9 @@ def conventions_phase(pos, vel, radius, ids, target, nav_dir, nbr, nbr_count, he
                 dx, dy = pos[j, 0] - pos[i, 0], pos[j, 1] - pos[i, 1]
                 a_j = dx * ex + dy * ey
                 l_j = ex * dy - ey * dx
-                if -0.5 < a_j < lead_ahead + 1.0 and 0.0 < l_j < radius[i] + radius[j] + 0.3:
-                    passing = False
-                    break
+                # combined with & and no early exit: cheaper than the mispredicted chain of tests
+                passing &= not ((-0.5 < a_j) & (a_j < lead_ahead + 1.0) & (0.0 < l_j)
+                                & (l_j < radius[i] + radius[j] + 0.3))
         if passing:
             px, py = co * px - so * py, so * px + co * py
         elif sp > limit:

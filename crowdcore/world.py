@@ -347,8 +347,10 @@ class World:
         min_gap = np.empty(n)
         overlaps = np.empty(n, np.int32)
         phases.separation_phase(out_pos, a["radius"], a["ids"], nbr, nbr_count, 0.01, min_gap, overlaps)
+        gap_min, n_overlaps, n_blocked, n_fallbacks, n_guarded, n_arrived = phases.frame_tally(
+            min_gap, overlaps, blocked, rec, guarded, arrived)
         # commit: nothing above touched the world
-        n_arrived = int(arrived.sum())
+        n_arrived = int(n_arrived)
         self.last_arrived = a["ids"][arrived]
         new_state = dict(a, pos=out_pos, vel=out_vel, prev_vel=vel)
         if n_arrived:  # arrivals leave the world; rows stay sorted by id
@@ -359,12 +361,12 @@ class World:
         self.frame += 1
         self.time += dt
         self.stats = {
-            "min_gap": float(min_gap.min()) if n else math.inf,
-            "overlaps": int(overlaps.sum()),
-            "blocked_moves": int(blocked.sum()),
+            "min_gap": float(gap_min),
+            "overlaps": int(n_overlaps),
+            "blocked_moves": int(n_blocked),
             "arrived": n_arrived,
-            "fallbacks": int((rec < 0).sum()),
-            "guarded": int(guarded.sum()),
+            "fallbacks": int(n_fallbacks),
+            "guarded": int(n_guarded),
             "search_width": z,
             "neighbours": k,
         }

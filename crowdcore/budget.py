@@ -382,18 +382,20 @@ class BudgetConfig:
     calibrate_n: int = 0                         # 0: the agent count found for the 30 fps budget
     deadline_s: float = 3600.0
     warm_start: bool = True
+    sustained_counts: tuple = (10000, 20000)   # square-1 once its counterflow has jammed (see run_budget)
+    sustained_after: int = 150
 
 
 FULL = BudgetConfig()
 QUICK = BudgetConfig(counts=(1000, 2000, 5000, 10000, 20000), curve_scenes=("square-1",), other_scenes_at=5000,
                      frames=5, warmup=5, search_start=1000, search_frames=7, search_tol=0.1, search_max=200000,
                      governor_max=40000, buckets=(25, 100, 400), sweep_n=5000, ratio_n=5000, hash_n=10000,
-                     repeat=3, governor_frames=40, calibrate_n=0, deadline_s=95.0)
+                     repeat=3, governor_frames=40, calibrate_n=0, deadline_s=95.0, sustained_counts=(10000,))
 TINY = BudgetConfig(counts=(30, 60), curve_scenes=("square-1",), other_scenes_at=30, frames=2, warmup=1,
                     search_start=32, search_frames=1, search_tol=0.5, search_max=128,
                     governor_max=80, exponent_range=(30, 60), widths=(0, 3),
                     buckets=(10, 100), sweep_n=40, ratio_n=40, hash_n=200, repeat=1, governor_frames=6,
-                    calibrate_n=60, deadline_s=60.0, warm_start=False)
+                    calibrate_n=60, deadline_s=60.0, warm_start=False, sustained_counts=(60,), sustained_after=8)
 
 
 def run_budget(quick=False, out_dir="crowdcore-budget", progress=True, config=None):
@@ -401,7 +403,7 @@ def run_budget(quick=False, out_dir="crowdcore-budget", progress=True, config=No
     cfg = config if config is not None else (QUICK if quick else FULL)
     os.makedirs(out_dir, exist_ok=True)
     t_start = time.perf_counter()
-    sections = ["warm-up", "curve", "other scenes", "max agents", "pruned vs full", "hash vs kd-tree",
+    sections = ["warm-up", "curve", "other scenes", "max agents", "sustained", "pruned vs full", "hash vs kd-tree",
                 "threads", "search width", "buckets", "governor", "warm start", "plots"]
     bar = None
     if progress:
@@ -484,6 +486,26 @@ def run_budget(quick=False, out_dir="crowdcore-budget", progress=True, config=No
         res["max_agents"][label] = {"budget_ms": round(budget, 2), "agents": n, "probes": probes,
                                     "scene": "square-1", "stopped_by_deadline": time.perf_counter() > stop}
         res[f"max_agents_{label}"] = n
+    done()
+
+    # The curve and the search time frames 6-12 of a crowd starting from rest. Later the two halves
+    # of square-1 meet and jam in the middle; a step there costs more (about 1.2x at 10,000 agents:
+    # more agents whose ideal velocity breaks an avoidance line). Users who run a crowd for minutes
+    # pay that, so it is measured too, on the same scene after `sustained_after` frames.
+    step("sustained")
+    sustained = []
+    for n in cfg.sustained_counts:
+        per_frame_ms = base[-1]["ms_median"] * n / base[-1]["agents"] if base else 30.0
+        cost = 1.5 * per_frame_ms * (cfg.sustained_after + max(cfg.frames, cfg.search_frames)) / 1e3
+        if cost > left() * 0.5:
+            res["skipped"].append(f"sustained n={n}: predicted {cost:.0f} s")
+            continue
+        r = measure(build_scene("square-1", n), max(cfg.frames, cfg.search_frames), cfg.sustained_after)
+        r["scene"], r["after_frames"] = "square-1", cfg.sustained_after
+        sustained.append(r)
+    res["sustained"] = sustained
+    for label, budget in BUDGETS_MS.items():
+        res[f"sustained_fits_{label}"] = {str(r["agents"]): r["ms_median"] <= budget for r in sustained}
     done()
 
     step("pruned vs full")

@@ -144,8 +144,9 @@ def test_tiny_run_writes_well_formed_json_and_plots(tmp_path):
     assert data == json.loads(json.dumps(res))
     for key in ("max_agents_30fps", "max_agents_60fps", "pruned_vs_full_speedup", "pruned_equals_full",
                 "hash_vs_kdtree_speedup", "scaling_exponent", "threads_speedup", "machine", "curve",
-                "search_width", "buckets", "governor", "phase_breakdown_at"):
+                "search_width", "buckets", "governor", "phase_breakdown_at", "sustained", "sustained_fits_30fps"):
         assert key in data, key
+    assert [r["after_frames"] for r in data["sustained"]] == [TINY.sustained_after]
     assert data["pruned_equals_full"] is True
     assert data["hash_vs_kdtree"]["same_neighbour_distances"] is True
     assert isinstance(data["max_agents_30fps"], int) and data["max_agents_30fps"] >= data["max_agents_60fps"]

@@ -54,3 +54,23 @@ def prefetch(typingctx, arr, row, byte_offset):
         return context.get_dummy_value()
 
     return types.void(arr, row, byte_offset), codegen
+
+
+@numba.extending.intrinsic
+def fetch_add(typingctx, arr, index, value):
+    """Atomically add value to arr[index] (int64) and return the old value: a shared work counter
+    for threads that take the next item when done with theirs."""
+    from numba.core import cgutils, types
+
+    if not (isinstance(arr, types.Array) and arr.ndim == 1 and arr.dtype == types.int64
+            and isinstance(index, types.Integer) and isinstance(value, types.Integer)):
+        return None
+
+    def codegen(context, builder, sig, args):
+        ary = context.make_array(sig.args[0])(context, builder, args[0])
+        idx = context.cast(builder, args[1], sig.args[1], types.intp)
+        ptr = cgutils.get_item_pointer(context, builder, sig.args[0], ary, [idx])
+        val = context.cast(builder, args[2], sig.args[2], types.int64)
+        return builder.atomic_rmw("add", ptr, val, "monotonic")
+
+    return types.int64(arr, index, value), codegen

@@ -51,7 +51,7 @@ import math
 import numpy as np
 import numba
 
-from ._jit import kernel, parallel_kernel, prefetch
+from ._jit import fetch_add, kernel, parallel_kernel, prefetch
 from .errors import RecordSetError, StepError
 
 __all__ = ["energy", "choose_full", "choose_pruned",
@@ -62,8 +62,8 @@ LINE_EPS = 1e-9         # half-plane violation tolerance in strict mode (contrac
 _MARGIN_REL = 1e-9      # prune only when a bound beats the best by this fraction of the energy scale
 _FEAS_REL = 1e-9        # strict-mode feasibility tests are relaxed by this fraction of each line's scale
 _BIG = 1.7976931348623157e308  # largest float64: energy bounds are capped here, inf means infeasible
-_BLOCK = 64             # agents per parallel work item (scratch buffers are shared within a block)
-_CHUNKS_PER_THREAD = 8  # parts the agent blocks are dealt out in, per thread (see RecordIndex.run)
+_BLOCK = 64             # agents per work item that a thread takes from the shared counter
+_MAX_WORKERS = 256      # upper bound on threads the search can use
 _JOINT_COS = math.cos(0.1)  # joint bound only where the direction is this far off the quadratic centre
 _HESS_DIR = 1.25        # |Hessian of cos(angle(q) - beta)| <= (2/sqrt(3))/|q|^2 ~ 1.155/|q|^2; rounded up
 _NODE_COLS = 13         # qx_lo qx_hi qy_lo qy_hi a_lo a_hi phi_lo phi_hi cos/sin(phi_lo) cos/sin(phi_hi) b_lo
@@ -989,8 +989,18 @@ def _pruned_blocks(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tr
     nl_max = max(lines.shape[1], 1)
     nblocks = (n + _BLOCK - 1) // _BLOCK
     order, agent_bucket = _agents_by_bucket(bucket_start, bucket_min_a, v_now)
-    for blk in numba.prange(nblocks):
-        # Scratch shared by the block's agents: one allocation each per 64 agents, not per agent.
+    # Agents come in speed-bucket order and a search's cost varies with where and how fast an agent
+    # walks, so any fixed split of the blocks leaves a thread waiting. Each worker takes the next
+    # block from a shared counter instead; every agent's result is the same whoever searches it.
+    # More workers than threads cost nothing: a thread's first worker drains the counter and the rest
+    # find it empty. (numba.get_num_threads() inside a kernel would stop it from being cached.)
+    workers = min(nblocks, _MAX_WORKERS)
+    next_block = np.zeros(1, np.int64)
+    for _wk in numba.prange(workers):
+        blk = fetch_add(next_block, 0, 1)
+        if blk >= nblocks:
+            continue
+        # Scratch per worker, shared by the agents it searches.
         fl = np.empty((nl_max, 3))
         fb = np.empty(4)
         poly = np.empty((4, 4 * (8 + nl_max)))
@@ -998,10 +1008,13 @@ def _pruned_blocks(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tr
         hm = np.empty(hcap, np.int64)
         cand_e = np.empty(most)
         cand_p = np.empty(most, np.int64)
-        _search_block(blk * _BLOCK, min((blk + 1) * _BLOCK, n), a, b, cphi, sphi, bucket_start, bucket_min_a, perm,
-                      rec_t, tree_node_start, node_range, node_box, b_max, a_max, forest_z, weights, z,
-                      strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, fl, fb, poly,
-                      hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work, order, agent_bucket)
+        while blk < nblocks:
+            _search_block(blk * _BLOCK, min((blk + 1) * _BLOCK, n), a, b, cphi, sphi, bucket_start, bucket_min_a,
+                          perm, rec_t, tree_node_start, node_range, node_box, b_max, a_max, forest_z, weights, z,
+                          strict, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, fl, fb,
+                          poly, hl, hm, cand_e, cand_p, out_vel, out_rec, out_evals, out_visits, work, order,
+                          agent_bucket)
+            blk = fetch_add(next_block, 0, 1)
 
 
 @kernel  # the prange over agent blocks is in `_pruned_blocks`
@@ -1242,15 +1255,8 @@ class RecordIndex:
         else:
             raise StepError("kernel_fn must be choose_full or choose_pruned")
         if n:
-            # Agents come in speed-bucket order and a search's cost varies with speed, so the default
-            # split of the blocks into one contiguous part per thread leaves one thread waiting.
-            # Handing them out in about 8 chunks per thread balances them (8% at 10,000 agents on 2).
-            chunk = 0
-            if kernel_fn is choose_pruned:
-                chunk = max(1, -(-n // _BLOCK) // (_CHUNKS_PER_THREAD * numba.get_num_threads()))
-            with numba.parallel_chunksize(chunk):
-                kernel_fn(*lead, weights, int(z), bool(strict), v_now, v_pref, nav_dir, v_safe, v_group,
-                          max_speed, lines, line_count, out_vel, out_rec)
+            kernel_fn(*lead, weights, int(z), bool(strict), v_now, v_pref, nav_dir, v_safe, v_group,
+                      max_speed, lines, line_count, out_vel, out_rec)
 
 
 def _check_shapes(weights, v_now, v_pref, nav_dir, v_safe, v_group, max_speed, lines, line_count, out_vel,

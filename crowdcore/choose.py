@@ -952,29 +952,24 @@ def _largest_leaf(tree_node_start, node_range):
 
 
 @kernel
-def _agents_by_bucket(bucket_start, bucket_min_a, v_now):
-    """(order, bucket): agent rows grouped by the bucket of their speed (counting sort; ascending rows
-    within a bucket), and each row's bucket (`_bucket_of` of its speed, as the search computes it).
+def _order_by_bucket(agent_bucket, nb):
+    """Agent rows grouped by bucket (counting sort; ascending rows within a bucket).
 
     Agents of one bucket walk the same few trees and leaves, so searching them one after another
     finds those nodes in cache. Each agent's result does not depend on the order."""
-    n = v_now.shape[0]
-    nb = bucket_start.shape[0] - 1
+    n = agent_bucket.shape[0]
     order = np.arange(n)
-    kk = np.zeros(n, np.int64)
     if nb < 1:
-        return order, kk
+        return order
     count = np.zeros(nb + 1, np.int64)
     for i in range(n):
-        k = _bucket_of(bucket_min_a, math.sqrt(v_now[i, 0] * v_now[i, 0] + v_now[i, 1] * v_now[i, 1]))
-        kk[i] = k
-        count[k + 1] += 1
+        count[agent_bucket[i] + 1] += 1
     for k in range(nb):
         count[k + 1] += count[k]
     for i in range(n):
-        order[count[kk[i]]] = i
-        count[kk[i]] += 1
-    return order, kk
+        order[count[agent_bucket[i]]] = i
+        count[agent_bucket[i]] += 1
+    return order
 
 
 @parallel_kernel
@@ -988,7 +983,13 @@ def _pruned_blocks(a, b, cphi, sphi, bucket_start, bucket_min_a, perm, rec_t, tr
     hcap = _window_nodes(tree_node_start, 0 if forest_z >= 0 else z)
     nl_max = max(lines.shape[1], 1)
     nblocks = (n + _BLOCK - 1) // _BLOCK
-    order, agent_bucket = _agents_by_bucket(bucket_start, bucket_min_a, v_now)
+    nb = bucket_start.shape[0] - 1
+    agent_bucket = np.zeros(n, np.int64)  # `_bucket_of` of each agent's speed, as the search computes it
+    if nb >= 1:
+        for i in numba.prange(n):
+            agent_bucket[i] = _bucket_of(bucket_min_a, math.sqrt(v_now[i, 0] * v_now[i, 0]
+                                                                 + v_now[i, 1] * v_now[i, 1]))
+    order = _order_by_bucket(agent_bucket, nb)
     # Agents come in speed-bucket order and a search's cost varies with where and how fast an agent
     # walks, so any fixed split of the blocks leaves a thread waiting. Each worker takes the next
     # block from a shared counter instead; every agent's result is the same whoever searches it.

@@ -77,7 +77,8 @@ def test_every_error_case_from_c(native, tmp_path):
     for case in ("stale handle step", "create NULL def", "step NaN", "step negative dt", "positions capacity too small",
                  "remove unknown id", "garbage snapshot", "world unchanged by all the refused calls",
                  "buffer rows equal the agents' positions", "buffer beyond count untouched", "set_params NaN",
-                 "set_params unknown key", "the step used the new search width and neighbour count"):
+                 "set_params unknown key", "the step used the new search width and neighbour count",
+                 "snapshot after a step holds the stepped state"):
         assert f"ok   {case}" in text, case
 
 

@@ -483,6 +483,29 @@ def test_agent_order_and_threads(seed, strict, w):
         numba.set_num_threads(old)
 
 
+def test_shared_counter_hands_out_every_block_once():
+    # The pruned search's threads take blocks from one atomic counter: under contention every value
+    # must come out exactly once (a lost update would skip or repeat a block of agents).
+    from crowdcore._jit import fetch_add
+
+    @numba.njit(parallel=True)
+    def take(counter, out, tries):
+        for t in numba.prange(tries):
+            out[t] = fetch_add(counter, 0, 1)
+
+    old = numba.get_num_threads()
+    try:
+        numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+        for _ in range(20):
+            counter = np.zeros(1, np.int64)
+            out = np.empty(100_000, np.int64)
+            take(counter, out, out.shape[0])
+            assert counter[0] == out.shape[0]
+            assert np.array_equal(np.sort(out), np.arange(out.shape[0]))
+    finally:
+        numba.set_num_threads(old)
+
+
 # ---------------------------------------------------------------------------------------------
 # Python surface
 

@@ -283,6 +283,26 @@ int main(void)
         free(buf);
     }
 
+    /* ---- a snapshot taken after a step holds that step (the C-side step must invalidate the
+     * adapter's cached image from a size query made before it) */
+    {
+        int64_t size = 0;
+        unsigned char *buf;
+        cc_world copy = 0;
+        char now[33], copied[33];
+        cc_world_save_snapshot(w, NULL, 0, &size);          /* caches an image of the current state */
+        expect("step between size query and copy", cc_world_step(w, 0.1), CC_OK);
+        cc_world_save_snapshot(w, NULL, 0, &size);
+        buf = malloc((size_t)size);
+        expect("save after step", cc_world_save_snapshot(w, buf, size, &size), CC_OK);
+        expect("world from that snapshot", cc_world_create_from_snapshot(buf, size, &copy), CC_OK);
+        hash_of(w, now);
+        hash_of(copy, copied);
+        truth("snapshot after a step holds the stepped state", strcmp(now, copied) == 0);
+        cc_world_destroy(copy);
+        free(buf);
+    }
+
     /* ---- last-error text API */
     {
         char small[6];

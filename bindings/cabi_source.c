@@ -430,7 +430,7 @@ CC_EXPORT int32_t cc_world_step(cc_world w, double dt)
         status = cc__step_error();
     }
     PyGILState_Release(g);
-    cc__slot_unlock((uint32_t)w);
+    __atomic_store_n(&s->busy, 0, __ATOMIC_RELEASE);   /* through s, not a new lookup: its line is warm */
     return status;
 }
 

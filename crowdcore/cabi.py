@@ -551,8 +551,7 @@ def _bind(ffi, lib):
     # an exception out of that call into a status code and this thread's error text.
     def step_failed(e):
         if isinstance(e, StepError):     # dt above max_dt: refused before anything changed
-            set_error(str(e).encode("utf-8", "replace")[:4000])
-            return ERR_RANGE
+            e = _Fail(ERR_RANGE, str(e))
         return report(e)
 
     _keep.append(step_failed)            # the C side holds a borrowed pointer

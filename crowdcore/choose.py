@@ -32,7 +32,7 @@ times the rounding between these tests and `_allowed`, which still decides every
 Each bucket's tree holds one copy of records with bitwise-identical (a, b, phi): a later copy has
 the same energy and velocity, so the full scan (first strictly smaller energy wins) never picks it.
 
-Two things make the search fast in practice without touching what it returns:
+Four things make the search fast in practice without touching what it returns:
 - Window forests. Searching 2z+1 separate bucket trees means 2z+1 descents. For 1 <= z <= 3 the
   index builds, on first use of that z by 1,000 agents or more, one tree per bucket k over all records of buckets k-z..k+z
   (the agent's whole window), so each agent descends one tree. Records are stored 2z+1 times
@@ -45,6 +45,8 @@ Two things make the search fast in practice without touching what it returns:
   So the search asks for those lines ahead of use: the next agent's inputs while it works on this one,
   and a node's children's boxes (or a leaf's records) when the node is opened. 12-15% faster on
   square-1, 3-5% on square-2 (10,000 agents, one thread); a hint only, results are unchanged.
+- Dynamic balance. A search's cost varies with an agent's speed and surroundings, so threads take
+  the next block of agents from a shared atomic counter instead of a fixed share (`_pruned_blocks`).
 """
 import math
 
@@ -789,11 +791,10 @@ def _search_block(lo, hi, a, b, cphi, sphi, bucket_start, bucket_min_a, perm, re
                         k = t0 + t
                         if tree_node_start[k + 1] == tree_node_start[k]:
                             continue
-                        mc = tree_node_start[k]
+                        base = tree_node_start[k]
+                        mc = base
                     else:
                         mc = base + c1 + t
-                    base_k = tree_node_start[k]
-                    end_k = tree_node_start[k + 1]
                     # Lower bound of the energy of every record in node mc; skip the node when no
                     # record in it can be eligible (speed limit, feasible box, one relaxed line).
                     if node_box[mc, 12] > vmax:
@@ -906,8 +907,8 @@ def _search_block(lo, hi, a, b, cphi, sphi, bucket_start, bucket_min_a, perm, re
                     size += 1
                     # An open node is expanded later if at all: start fetching what that reads (its
                     # children's boxes, or a leaf's first records) so it is in cache by then.
-                    g = 2 * mc - base_k + 1
-                    if g < end_k:
+                    g = 2 * mc - base + 1
+                    if g < tree_node_start[k + 1]:
                         for off in range(0, 16 * _NODE_COLS, 64):
                             prefetch(node_box, g, off)
                         prefetch(node_box, g, 16 * _NODE_COLS - 1)

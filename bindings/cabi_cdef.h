@@ -18,6 +18,7 @@ double cc__slot_step_seconds(uint32_t idx);
 void cc__set_step_failed(void *handler);
 
 extern "Python" {
+    int32_t cc__py_attach_thread(void);
     int32_t cc__py_default_world_def(cc_world_def *);
     int32_t cc__py_default_agent_def(cc_agent_def *);
     int32_t cc__py_world_create(const cc_world_def *, cc_world *);

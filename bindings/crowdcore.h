@@ -17,6 +17,8 @@
  *     from different threads:
  *     calls serialise on the embedded Python interpreter lock, except inside compiled kernels, which
  *     release it, so two worlds stepping on two threads overlap only partly.
+ *     A host thread written in Python calls with the interpreter lock released (ctypes.CDLL and cffi's ABI
+ *     mode release it) or always holds it: a thread that stepped once without it is expected to stay so.
  *   - The first call that needs the runtime starts an embedded Python interpreter configured from paths
  *     baked in at build time (no PYTHONPATH needed); call cc_init() to pay that cost at a time you choose.
  *   - Results are bit-identical to the Python API (crowdcore.World) for the same inputs.
@@ -33,7 +35,7 @@ extern "C" {
 /* @cdef-begin (this block is also the cffi declaration source: constants, typedefs and structs only) */
 #define CC_ABI_VERSION_MAJOR 1
 #define CC_ABI_VERSION_MINOR 2
-#define CC_ABI_VERSION_PATCH 1
+#define CC_ABI_VERSION_PATCH 2
 
 /* Status codes. */
 #define CC_OK 0

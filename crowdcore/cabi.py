@@ -110,7 +110,7 @@ def describe(out_dir=None):
     ])
 
 
-ABI_VERSION = (1, 2, 1)
+ABI_VERSION = (1, 2, 2)
 
 
 # ====================================================================== adapter
@@ -556,6 +556,12 @@ def _bind(ffi, lib):
 
     _keep.append(step_failed)            # the C side holds a borrowed pointer
     lib.cc__set_step_failed(ffi.cast("void *", id(step_failed)))
+
+    # A no-op that cc_world_step calls on a thread new to Python: entering through cffi gives the
+    # thread a thread state that cffi keeps until the thread exits, which the step then reuses.
+    @ffi.def_extern(name="cc__py_attach_thread", error=ERR_INTERNAL)
+    def attach_thread():
+        return OK
 
     @export("world_get_step_stats")
     def world_get_step_stats(s, out):

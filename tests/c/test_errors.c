@@ -6,6 +6,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 #include "crowdcore.h"
 
 static int failures = 0, checks = 0;
@@ -255,6 +256,17 @@ int main(void)
         expect("step after set_params", cc_world_step(w, 0.1), CC_OK);
         expect("stats after set_params", cc_world_get_step_stats(w, &st), CC_OK);
         truth("the step used the new search width and neighbour count", st.search_width == 1 && st.neighbours == 6);
+        {   /* the step's own clock (the CPU's counter where the kernel trusts it) reads in seconds */
+            struct timespec a, b;
+            double wall;
+            clock_gettime(CLOCK_MONOTONIC, &a);
+            expect("timed step", cc_world_step(w, 0.1), CC_OK);
+            clock_gettime(CLOCK_MONOTONIC, &b);
+            wall = (double)(b.tv_sec - a.tv_sec) + 1e-9 * (double)(b.tv_nsec - a.tv_nsec);
+            expect("stats after the timed step", cc_world_get_step_stats(w, &st), CC_OK);
+            truth("step_seconds is within the call's wall time, and most of it",
+                  st.step_seconds > 0.5 * wall && st.step_seconds <= wall * 1.001 + 1e-6);
+        }
         expect("set_params as a [params] table", cc_world_set_params(w, "[params]\nsearch_width = 3\nneighbours = 10"),
                CC_OK);
         expect("step after restoring", cc_world_step(w, 0.1), CC_OK);

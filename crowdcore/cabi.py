@@ -401,21 +401,15 @@ def _bind(ffi, lib):
         readable_file(p, "snapshot")
         put_handle(out, World.load(p))
 
-    @export("world_destroy", world=False)
-    def world_destroy(h):
-        s = _slot(h)
-        if not lock(s.idx):
-            raise _Fail(ERR_BUSY, f"world {h:#x}: in use by another thread")
-        try:
-            if s.recorder is not None:
-                s.recorder, rec = None, s.recorder
-                rec.close()
-            lib.cc__slot_close(s.idx)          # C first: no step may start on a world being dropped
-            s.world, s.step, s.snap = None, None, None
-            s.gen = s.gen % 0xFFFFFFFF + 1     # every old copy of the handle is now stale
-            _free.append(s.idx)
-        finally:
-            unlock(s.idx)
+    @export("world_destroy")
+    def world_destroy(s):
+        if s.recorder is not None:
+            s.recorder, rec = None, s.recorder
+            rec.close()
+        lib.cc__slot_close(s.idx)          # C first: no step may start on a world being dropped
+        s.world, s.step, s.snap = None, None, None
+        s.gen = s.gen % 0xFFFFFFFF + 1     # every old copy of the handle is now stale
+        _free.append(s.idx)
 
     # -------------------------------------------------------------- scene edits
     def scene_edit(call, *args):
